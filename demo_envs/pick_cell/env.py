@@ -80,7 +80,7 @@ class PickCellEnv(gym.Env):
         self.cell = CellSettings(
             max_items=max_items,
             horizon=horizon,
-            perturbations=dict(perturbations) if perturbations else None,
+            perturbations=perturbations,
             reveal=reveal,
             sensor_noise=sensor_noise,
         )

@@ -60,7 +60,7 @@ class PickCellVectorEnv(VectorEnv):
         self.cell = CellSettings(
             max_items=max_items,
             horizon=horizon,
-            perturbations=dict(perturbations) if perturbations else None,
+            perturbations=perturbations,
             reveal=reveal,
             sensor_noise=sensor_noise,
         )
