@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import gymnasium as gym
-import numpy as np
 
 import demo_envs
 from demo_envs.pick_cell import ScriptedPicker
+from qadapt.rollout import run_episodes
 
 
 def success_count(
@@ -20,13 +20,4 @@ def success_count(
     envs = gym.make_vec(
         demo_envs.PICK_CELL_ID, num_envs=episodes, perturbations=perturbations, **kwargs
     )
-    picker = ScriptedPicker(noise=noise, seed=seed)
-    obs, _ = envs.reset(seed=seed)
-    done = np.zeros(episodes, dtype=bool)
-    success = np.zeros(episodes, dtype=bool)
-    for _ in range(envs.unwrapped.cell.horizon):
-        obs, _, terminated, truncated, _ = envs.step(picker.act(obs))
-        success |= terminated & ~done
-        done |= terminated | truncated
-    assert done.all()
-    return int(success.sum())
+    return run_episodes(envs, ScriptedPicker(noise=noise, seed=seed), seed=seed).successes
