@@ -1,0 +1,357 @@
+"""Running a policy in a gymnasium vector environment and writing what it saw as a dataset.
+
+Holds:
+    CollectionSummary -- what a collection produced: counts, success rate, mean return.
+    collect -- run a policy until N complete episodes or N transitions; stream them to disk in
+        chunks; resume an interrupted run with the same arguments; publish atomically.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import gymnasium
+import numpy as np
+from gymnasium.vector import AutoresetMode
+from tqdm import tqdm
+
+from qadapt.data.dataset import open_dataset
+from qadapt.data.manifest import EnvironmentRecord
+from qadapt.data.policy import Policy
+from qadapt.data.schema import FORMAT_VERSION
+from qadapt.data.spaces import DiscreteDescription, describe_space
+from qadapt.data.statistics import dataset_statistics
+from qadapt.data.validation import check_actions
+from qadapt.data.writer import DatasetWriter, check_collector_record
+from qadapt.errors import BadInput
+
+DEFAULT_CHUNK_TRANSITIONS = 1 << 16
+
+
+@dataclass(frozen=True)
+class CollectionSummary:
+    """The outcome of :func:`collect`.
+
+    ``success_rate`` is over finished episodes and None when the environment reported no
+    ``is_success`` (unknown, not zero); ``mean_return`` is over finished episodes.
+    """
+
+    path: Path
+    transitions: int
+    episodes: int
+    finished_episodes: int
+    success_rate: float | None
+    mean_return: float | None
+    chunks: int
+    resumed_chunks: int
+    seconds: float
+
+    def text(self) -> str:
+        success = "unknown" if self.success_rate is None else f"{self.success_rate:.3f}"
+        mean = "n/a" if self.mean_return is None else f"{self.mean_return:.3f}"
+        resumed = f", resumed after {self.resumed_chunks} chunks" if self.resumed_chunks else ""
+        return (
+            f"collected {self.episodes} episodes ({self.transitions} transitions) into "
+            f"{self.path}: success rate {success}, mean return {mean}{resumed}"
+        )
+
+
+def _positive(value: object, name: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
+        raise BadInput(f"{name}: got {value!r}, expected a positive integer")
+    return int(value)
+
+
+def _run_digest(description: dict[str, Any]) -> str:
+    text = json.dumps(description, sort_keys=True, allow_nan=False, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def _chunk_seeds(seed: int, chunk: int, count: int) -> tuple[list[int], int]:
+    """Reset seeds for ``count`` sub-environments and one policy seed for chunk ``chunk``."""
+    env_seeds = np.random.SeedSequence([seed, chunk, 0]).generate_state(count)
+    policy_seed = np.random.SeedSequence([seed, chunk, 1]).generate_state(1)[0]
+    return [int(s) for s in env_seeds], int(policy_seed)
+
+
+def _success_flags(infos: dict[str, Any], count: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per-sub-environment ``(success, reported)`` from vector infos (``_is_success`` mask)."""
+    if "is_success" not in infos:
+        return np.zeros(count, dtype=bool), np.zeros(count, dtype=bool)
+    values = np.asarray(infos["is_success"]).reshape(count).astype(bool)
+    mask = infos.get("_is_success")
+    reported = np.ones(count, dtype=bool) if mask is None else np.asarray(mask, dtype=bool)
+    return values & reported, reported
+
+
+class _EpisodeBuffer:
+    """The steps of one sub-environment's running episode."""
+
+    __slots__ = ("steps",)
+
+    def __init__(self) -> None:
+        self.steps: list[tuple] = []
+
+    def arrays(self, keep: int | None = None) -> dict[str, np.ndarray]:
+        steps = self.steps if keep is None else self.steps[:keep]
+        columns = list(zip(*steps, strict=True))
+        names = (
+            "observations",
+            "actions",
+            "rewards",
+            "next_observations",
+            "terminated",
+            "truncated",
+            "success",
+            "success_reported",
+        )
+        return {name: np.asarray(column) for name, column in zip(names, columns, strict=True)}
+
+
+def _to_env_actions(actions: np.ndarray, space, count: int) -> tuple[np.ndarray, np.ndarray]:
+    """Policy output as ``(stored [N, act_dim] float32, what the vector env takes)``."""
+    actions = np.asarray(actions)
+    if isinstance(space, DiscreteDescription):
+        stored = actions.reshape(count, 1).astype(np.float32)
+        return stored, stored[:, 0].astype(np.int64)
+    if actions.shape != (count, space.width):
+        raise BadInput(
+            f"policy.act returned shape {actions.shape}, expected ({count}, {space.width})"
+        )
+    stored = actions.astype(np.float32)
+    return stored, stored
+
+
+def collect(
+    vector_env: gymnasium.vector.VectorEnv,
+    policy: Policy,
+    *,
+    episodes: int | None = None,
+    transitions: int | None = None,
+    out: str | Path,
+    seed: int,
+    env_record: dict[str, Any],
+    collector_record: dict[str, Any] | None = None,
+    progress: bool = True,
+    chunk_transitions: int = DEFAULT_CHUNK_TRANSITIONS,
+    overwrite: bool = False,
+) -> CollectionSummary:
+    """Run ``policy`` in ``vector_env`` and write a dataset at ``out``; return a summary.
+
+    Give exactly one of ``episodes`` (that many complete episodes; episodes still running
+    when the count is reached are dropped) or ``transitions`` (exactly that many; the last
+    episode may be cut short, its last step then has neither done flag). The environment must
+    use gymnasium's NEXT_STEP autoreset: the step after a done step returns the reset
+    observation, and that step's reward and flags are discarded, not recorded.
+
+    Transitions go to disk in chunks of about ``chunk_transitions``. Every chunk starts by
+    resetting all sub-environments with seeds derived from ``(seed, chunk number)`` (and
+    reseeding the policy if it has ``reseed``), so chunks do not depend on one another: re-run
+    an interrupted call with the same arguments and it continues after the last chunk on disk,
+    producing the same arrays as an uninterrupted run (for a deterministic or reseedable
+    policy). ``env_record`` is ``{"id", "kwargs", "wrappers"}``; ``collector_record`` (default:
+    ``policy.describe()``) says what collected the data. An existing dataset at ``out`` is
+    only replaced with ``overwrite=True``.
+
+    Example:
+        >>> import tempfile
+        >>> from qadapt.data.policy import UniformRandomPolicy
+        >>> envs = gymnasium.make_vec("CartPole-v1", 2, vectorization_mode="sync")
+        >>> summary = collect(envs, UniformRandomPolicy(envs.single_action_space, seed=1),
+        ...     episodes=5, out=Path(tempfile.mkdtemp()) / "cartpole", seed=0,
+        ...     env_record={"id": "CartPole-v1", "kwargs": {}, "wrappers": []}, progress=False)
+        >>> summary.episodes, summary.success_rate
+        (5, None)
+    """
+    started = time.perf_counter()
+    if (episodes is None) == (transitions is None):
+        raise BadInput("collect: give exactly one of episodes= or transitions=")
+    target_episodes = None if episodes is None else _positive(episodes, "episodes")
+    target_transitions = None if transitions is None else _positive(transitions, "transitions")
+    chunk_transitions = _positive(chunk_transitions, "chunk_transitions")
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise BadInput(f"seed: got {seed!r}, expected a non-negative integer")
+    if not isinstance(vector_env, gymnasium.vector.VectorEnv):
+        raise BadInput(f"vector_env: got {type(vector_env).__name__}, expected a VectorEnv")
+    mode = vector_env.metadata.get("autoreset_mode", AutoresetMode.NEXT_STEP)
+    if mode not in (AutoresetMode.NEXT_STEP, AutoresetMode.NEXT_STEP.value):
+        raise BadInput(
+            f"vector_env: autoreset mode {mode} is not supported; use gymnasium's default "
+            "NEXT_STEP mode"
+        )
+    for method in ("act", "describe"):
+        if not callable(getattr(policy, method, None)):
+            raise BadInput(f"policy: {type(policy).__name__} has no {method}() method")
+    environment = EnvironmentRecord.parse(env_record, where="env_record")
+    policy_description = check_collector_record(policy.describe(), where="policy.describe()")
+    collected_by = check_collector_record(
+        policy_description if collector_record is None else collector_record,
+        where="collector_record",
+    )
+    observation_space = describe_space(
+        vector_env.single_observation_space, role="observation space"
+    )
+    action_space = describe_space(vector_env.single_action_space, role="action space")
+    count = int(vector_env.num_envs)
+    description = {
+        "format_version": FORMAT_VERSION,
+        "environment": environment.to_json(),
+        "collected_by": collected_by,
+        "policy": policy_description,
+        "seed": seed,
+        "episodes": target_episodes,
+        "transitions": target_transitions,
+        "chunk_transitions": chunk_transitions,
+        "num_envs": count,
+        "observation_space": observation_space.to_json(),
+        "action_space": action_space.to_json(),
+    }
+    writer = DatasetWriter(
+        out,
+        environment=environment,
+        observation_space=observation_space,
+        action_space=action_space,
+        collected_by=collected_by,
+        seed=seed,
+        run_digest=_run_digest(description),
+        run_description=description,
+        resume=True,
+        overwrite=overwrite,
+    )
+    resumed_chunks = writer.committed_chunks
+    target = target_episodes if target_episodes is not None else target_transitions
+    unit = "episodes" if target_episodes is not None else "transitions"
+    done_so_far = writer.committed_episodes if target_episodes else writer.committed_transitions
+    bar = tqdm(
+        total=target,
+        initial=min(done_so_far, target),
+        unit=unit[:-1],
+        disable=not progress,
+        desc="collecting",
+        file=sys.stderr,
+    )
+    finished = False
+    try:
+        while not _target_reached(writer, target_episodes, target_transitions):
+            _collect_chunk(
+                vector_env,
+                policy,
+                writer,
+                action_space,
+                bar,
+                seed=seed,
+                count=count,
+                chunk_transitions=chunk_transitions,
+                target_episodes=target_episodes,
+                target_transitions=target_transitions,
+            )
+        path = writer.finish()
+        finished = True
+    finally:
+        bar.close()
+        if not finished:
+            writer.keep_for_resume()
+    dataset = open_dataset(path)
+    stats = dataset_statistics(dataset)
+    summary = CollectionSummary(
+        path=path,
+        transitions=stats.transitions,
+        episodes=stats.episodes,
+        finished_episodes=stats.finished_episodes,
+        success_rate=stats.success_rate,
+        mean_return=stats.return_mean,
+        chunks=writer.committed_chunks,
+        resumed_chunks=resumed_chunks,
+        seconds=time.perf_counter() - started,
+    )
+    if progress:
+        print(summary.text())
+    return summary
+
+
+def _target_reached(writer: DatasetWriter, episodes: int | None, transitions: int | None) -> bool:
+    if episodes is not None:
+        return writer.committed_episodes >= episodes
+    return writer.committed_transitions >= transitions
+
+
+def _collect_chunk(
+    vector_env,
+    policy,
+    writer,
+    action_space,
+    bar,
+    *,
+    seed,
+    count,
+    chunk_transitions,
+    target_episodes,
+    target_transitions,
+) -> None:
+    """Collect one chunk of complete episodes from freshly seeded sub-environments, commit it."""
+    env_seeds, policy_seed = _chunk_seeds(seed, writer.committed_chunks, count)
+    if callable(getattr(policy, "reseed", None)):
+        policy.reseed(policy_seed)
+    observations, _ = vector_env.reset(seed=env_seeds)
+    # Copies: a vector env built with copy=False reuses its observation buffer every step.
+    observations = np.array(observations, dtype=np.float32)
+    restarting = np.zeros(count, dtype=bool)  # this step returns a reset observation
+    buffers = [_EpisodeBuffer() for _ in range(count)]
+    completed: list[dict[str, np.ndarray]] = []
+    rows = 0
+    base_episodes, base_transitions = writer.committed_episodes, writer.committed_transitions
+    while True:
+        stored, env_actions = _to_env_actions(policy.act(observations), action_space, count)
+        check_actions(stored, action_space, where="policy.act output")
+        next_observations, rewards, terminated, truncated, infos = vector_env.step(env_actions)
+        next_observations = np.array(next_observations, dtype=np.float32)
+        terminated = np.asarray(terminated, dtype=bool)
+        truncated = np.asarray(truncated, dtype=bool)
+        success, reported = _success_flags(infos, count)
+        for i in np.flatnonzero(~restarting):
+            buffers[i].steps.append(
+                (
+                    observations[i],
+                    stored[i],
+                    float(rewards[i]),
+                    next_observations[i],
+                    bool(terminated[i]),
+                    bool(truncated[i]),
+                    bool(success[i]),
+                    bool(reported[i]),
+                )
+            )
+            if not (terminated[i] or truncated[i]):
+                continue
+            episode = buffers[i].arrays()
+            buffers[i] = _EpisodeBuffer()
+            length = episode["rewards"].shape[0]
+            if target_transitions is not None:
+                room = target_transitions - (base_transitions + rows)
+                if length > room:
+                    episode = {name: array[:room] for name, array in episode.items()}
+                    length = room
+            completed.append(episode)
+            rows += length
+            bar.update(1 if target_episodes is not None else length)
+            if target_episodes is not None and base_episodes + len(completed) >= target_episodes:
+                return _commit(writer, completed)
+            if target_transitions is not None and base_transitions + rows >= target_transitions:
+                return _commit(writer, completed)
+            if rows >= chunk_transitions:
+                return _commit(writer, completed)
+        observations = next_observations
+        restarting = terminated | truncated
+
+
+def _commit(writer: DatasetWriter, completed: list[dict[str, np.ndarray]]) -> None:
+    block = {name: np.concatenate([e[name] for e in completed]) for name in completed[0]}
+    lengths = np.array([e["rewards"].shape[0] for e in completed], dtype=np.int64)
+    writer.add_episodes(**block, episode_lengths=lengths, where="collected episodes")
+    writer.commit_chunk()

@@ -1,0 +1,251 @@
+"""Observation and action spaces as a manifest records them, and checks against live spaces.
+
+Holds:
+    BoxDescription -- a 1-D gymnasium Box: shape, dtype, per-dimension bounds.
+    DiscreteDescription -- a gymnasium Discrete: n choices starting at ``start``.
+    describe_space -- the description of a gymnasium space (Box with 1-D shape, or Discrete).
+    parse_space -- a description from its JSON form, validated.
+    check_spaces -- BadInput unless a dataset's spaces match given gymnasium spaces.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import gymnasium
+import numpy as np
+
+from qadapt.errors import BadInput
+
+_FLOAT_DTYPES = ("float16", "float32", "float64")
+
+
+def _bound_to_json(value: float) -> float | str:
+    # JSON has no infinity; strict parsers reject the non-standard `Infinity` token.
+    if math.isinf(value):
+        return "inf" if value > 0 else "-inf"
+    return float(value)
+
+
+def _bound_from_json(value: object, where: str) -> float:
+    if value == "inf":
+        return math.inf
+    if value == "-inf":
+        return -math.inf
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise BadInput(f"{where}: got {value!r}, expected a number, 'inf' or '-inf'")
+    number = float(value)
+    if math.isnan(number) or math.isinf(number):
+        raise BadInput(f"{where}: got {value!r}, expected a finite number, 'inf' or '-inf'")
+    return number
+
+
+@dataclass(frozen=True)
+class BoxDescription:
+    """A 1-D Box space: ``shape == (width,)``, bounds per dimension (may be infinite).
+
+    Example:
+        >>> box = describe_space(gymnasium.spaces.Box(-1.0, 1.0, (2,)))
+        >>> box.width, box.to_json()["high"]
+        (2, [1.0, 1.0])
+    """
+
+    shape: tuple[int]
+    dtype: str
+    low: tuple[float, ...]
+    high: tuple[float, ...]
+
+    @property
+    def width(self) -> int:
+        """Columns this space takes in a dataset array."""
+        return self.shape[0]
+
+    def label(self) -> str:
+        """Short human-readable form, e.g. ``Box shape (4,) float32``."""
+        return f"Box shape {self.shape} {self.dtype}"
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "type": "box",
+            "shape": list(self.shape),
+            "dtype": self.dtype,
+            "low": [_bound_to_json(v) for v in self.low],
+            "high": [_bound_to_json(v) for v in self.high],
+        }
+
+    def to_space(self) -> gymnasium.spaces.Box:
+        """The gymnasium Box this describes."""
+        return gymnasium.spaces.Box(
+            low=np.array(self.low, dtype=np.float64).astype(self.dtype),
+            high=np.array(self.high, dtype=np.float64).astype(self.dtype),
+            shape=self.shape,
+            dtype=np.dtype(self.dtype),
+        )
+
+
+@dataclass(frozen=True)
+class DiscreteDescription:
+    """A Discrete space: integers ``start .. start + n - 1``, stored as one float32 column.
+
+    Example:
+        >>> d = describe_space(gymnasium.spaces.Discrete(3))
+        >>> d.width, d.to_json()
+        (1, {'type': 'discrete', 'n': 3, 'start': 0})
+    """
+
+    n: int
+    start: int
+
+    @property
+    def width(self) -> int:
+        return 1
+
+    def label(self) -> str:
+        return f"Discrete n={self.n} start={self.start}"
+
+    def to_json(self) -> dict[str, Any]:
+        return {"type": "discrete", "n": self.n, "start": self.start}
+
+    def to_space(self) -> gymnasium.spaces.Discrete:
+        return gymnasium.spaces.Discrete(self.n, start=self.start)
+
+
+SpaceDescription = BoxDescription | DiscreteDescription
+
+
+def describe_space(space: gymnasium.Space, *, role: str = "space") -> SpaceDescription:
+    """Describe a gymnasium space; only 1-D Box and Discrete spaces are supported.
+
+    ``role`` ("observation space", "action space") names the space in the error message.
+    """
+    if isinstance(space, gymnasium.spaces.Box):
+        if len(space.shape) != 1:
+            raise BadInput(
+                f"{role}: Box of shape {space.shape} is not supported; datasets hold flat "
+                "vectors (a Box of shape (d,))"
+            )
+        if space.dtype is None or space.dtype.name not in _FLOAT_DTYPES:
+            raise BadInput(f"{role}: Box of dtype {space.dtype} is not supported; use a float")
+        return BoxDescription(
+            shape=(int(space.shape[0]),),
+            dtype=space.dtype.name,
+            low=tuple(float(v) for v in np.asarray(space.low, dtype=np.float64)),
+            high=tuple(float(v) for v in np.asarray(space.high, dtype=np.float64)),
+        )
+    if isinstance(space, gymnasium.spaces.Discrete):
+        return DiscreteDescription(n=int(space.n), start=int(space.start))
+    raise BadInput(
+        f"{role}: {type(space).__name__} spaces are not supported; use a 1-D Box or Discrete"
+    )
+
+
+def _positive_int(value: object, where: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise BadInput(f"{where}: got {value!r}, expected a positive integer")
+    return value
+
+
+def parse_space(value: object, *, where: str) -> SpaceDescription:
+    """Parse and validate a space description from a manifest (the form ``to_json`` gives)."""
+    if not isinstance(value, dict):
+        raise BadInput(f"{where}: got {type(value).__name__}, expected an object")
+    kind = value.get("type")
+    if kind == "discrete":
+        if set(value) != {"type", "n", "start"}:
+            raise BadInput(f"{where}: a discrete space has exactly the keys type, n, start")
+        start = value["start"]
+        if isinstance(start, bool) or not isinstance(start, int):
+            raise BadInput(f"{where}.start: got {start!r}, expected an integer")
+        return DiscreteDescription(n=_positive_int(value["n"], f"{where}.n"), start=start)
+    if kind != "box":
+        raise BadInput(f"{where}.type: got {kind!r}, expected 'box' or 'discrete'")
+    if set(value) != {"type", "shape", "dtype", "low", "high"}:
+        raise BadInput(f"{where}: a box space has exactly the keys type, shape, dtype, low, high")
+    shape = value["shape"]
+    if not isinstance(shape, list) or len(shape) != 1:
+        raise BadInput(f"{where}.shape: got {shape!r}, expected a one-element list [d]")
+    width = _positive_int(shape[0], f"{where}.shape[0]")
+    dtype = value["dtype"]
+    if dtype not in _FLOAT_DTYPES:
+        raise BadInput(f"{where}.dtype: got {dtype!r}, expected one of {list(_FLOAT_DTYPES)}")
+    bounds = {}
+    for key in ("low", "high"):
+        items = value[key]
+        if not isinstance(items, list) or len(items) != width:
+            raise BadInput(f"{where}.{key}: expected a list of {width} bounds")
+        bounds[key] = tuple(_bound_from_json(v, f"{where}.{key}[{i}]") for i, v in enumerate(items))
+    for i, (low, high) in enumerate(zip(bounds["low"], bounds["high"], strict=True)):
+        if low > high:
+            raise BadInput(f"{where}: dimension {i} has low {low} above high {high}")
+    return BoxDescription(shape=(width,), dtype=dtype, low=bounds["low"], high=bounds["high"])
+
+
+def _shape_text(description: SpaceDescription) -> str:
+    if isinstance(description, BoxDescription):
+        return f"Box of shape {description.shape}"
+    return f"Discrete of n={description.n} (stored as shape (1,))"
+
+
+def _mismatch(
+    described: SpaceDescription, expected: SpaceDescription, *, role: str, source: str, what: str
+) -> str | None:
+    if type(described) is not type(expected) or described.width != expected.width:
+        return (
+            f"{source}: {role} mismatch: the dataset has a {_shape_text(described)} "
+            f"but the {what} has a {_shape_text(expected)}"
+        )
+    if isinstance(described, DiscreteDescription):
+        if (described.n, described.start) != (expected.n, expected.start):
+            return (
+                f"{source}: {role} mismatch: the dataset has {described.label()} "
+                f"but the {what} has {expected.label()}"
+            )
+        return None
+    for i in range(described.width):
+        pair_a = (described.low[i], described.high[i])
+        pair_b = (expected.low[i], expected.high[i])
+        if pair_a != pair_b:
+            return (
+                f"{source}: {role} mismatch at dimension {i}: bounds {list(pair_a)} in the "
+                f"dataset (shape {described.shape}) but {list(pair_b)} in the {what} "
+                f"(shape {expected.shape})"
+            )
+    return None
+
+
+def check_spaces(
+    dataset: Any,
+    observation_space: gymnasium.Space,
+    action_space: gymnasium.Space,
+    what: str = "env",
+) -> None:
+    """Raise BadInput unless ``dataset``'s recorded spaces match the given gymnasium spaces.
+
+    Compares kind (Box/Discrete), shape and per-dimension bounds (dtypes are not compared:
+    dataset arrays are float32 whatever the space's dtype). ``what`` names the other side in
+    the message ("env", "checkpoint", ...). ``dataset`` is anything with ``observation_space``
+    and ``action_space`` descriptions and a ``path`` (a ReplayDataset).
+
+    Example:
+        >>> class Recorded:  # stands in for a ReplayDataset
+        ...     path = "ds"
+        ...     observation_space = describe_space(gymnasium.spaces.Box(-1, 1, (3,)))
+        ...     action_space = describe_space(gymnasium.spaces.Discrete(2))
+        >>> box4 = gymnasium.spaces.Box(-1, 1, (4,))
+        >>> try:
+        ...     check_spaces(Recorded(), box4, gymnasium.spaces.Discrete(2))
+        ... except BadInput as err:
+        ...     print(str(err).split(" but ")[1])
+        the env has a Box of shape (4,)
+    """
+    source = str(getattr(dataset, "path", "dataset"))
+    for role, described, live in (
+        ("observation space", dataset.observation_space, observation_space),
+        ("action space", dataset.action_space, action_space),
+    ):
+        expected = describe_space(live, role=f"{what} {role}")
+        problem = _mismatch(described, expected, role=role, source=source, what=what)
+        if problem:
+            raise BadInput(problem)
