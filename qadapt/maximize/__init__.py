@@ -1,0 +1,24 @@
+"""Action maximisers: for a batch of states, the action that maximises a score (a Q-function).
+
+Holds (one module each):
+    base -- the contract: ScoreFn, MaximizerResult, ActionMaximizer.
+    checks -- argument checks shared by the maximisers.
+    cem -- CrossEntropyMaximizer, the cross-entropy method over a Box.
+    exhaustive -- ExhaustiveMaximizer, the exact argmax over a finite candidate set.
+    factory -- MAXIMIZERS (the registry) and build_maximizer(kind, action_space, **settings).
+"""
+
+from qadapt.maximize.base import ActionMaximizer, MaximizerResult, ScoreFn
+from qadapt.maximize.cem import CrossEntropyMaximizer
+from qadapt.maximize.exhaustive import ExhaustiveMaximizer
+from qadapt.maximize.factory import MAXIMIZERS, build_maximizer
+
+__all__ = [
+    "MAXIMIZERS",
+    "ActionMaximizer",
+    "CrossEntropyMaximizer",
+    "ExhaustiveMaximizer",
+    "MaximizerResult",
+    "ScoreFn",
+    "build_maximizer",
+]
