@@ -20,6 +20,10 @@ JOBS: dict[str, tuple[str, str]] = {
         "run the scripted picker in the pick cell and under each variation; print success rates",
         "qadapt.preview:main",
     ),
+    "inspect": (
+        "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
+        "qadapt.data.inspection:main",
+    ),
 }
 
 
