@@ -18,37 +18,44 @@ Holds (each from its own module):
 The format itself is documented in docs/datasets.md.
 """
 
-from qadapt.data.batch import ReplayBatch
-from qadapt.data.collect import CollectionSummary, collect
-from qadapt.data.dataset import ReplayDataset, open_dataset
-from qadapt.data.importing import import_arrays
-from qadapt.data.inspection import inspect_dataset
-from qadapt.data.mixture import MixtureSampler
-from qadapt.data.policy import Policy, UniformRandomPolicy
-from qadapt.data.shares import LinearShareSchedule, check_shares
-from qadapt.data.spaces import check_spaces
-from qadapt.data.split import split_dataset
-from qadapt.data.statistics import DatasetStatistics, dataset_statistics
-from qadapt.data.synthetic import write_synthetic_dataset
-from qadapt.data.writer import DatasetWriter
+from __future__ import annotations
 
-__all__ = [
-    "CollectionSummary",
-    "DatasetStatistics",
-    "DatasetWriter",
-    "LinearShareSchedule",
-    "MixtureSampler",
-    "Policy",
-    "ReplayBatch",
-    "ReplayDataset",
-    "UniformRandomPolicy",
-    "check_shares",
-    "check_spaces",
-    "collect",
-    "dataset_statistics",
-    "import_arrays",
-    "inspect_dataset",
-    "open_dataset",
-    "split_dataset",
-    "write_synthetic_dataset",
-]
+import importlib
+from typing import Any
+
+# Names are imported on first use, so that `qadapt inspect` or a collection job does not pay
+# for importing torch, which only the sampler needs.
+_HOMES = {
+    "ReplayBatch": "batch",
+    "CollectionSummary": "collect",
+    "collect": "collect",
+    "ReplayDataset": "dataset",
+    "open_dataset": "dataset",
+    "import_arrays": "importing",
+    "inspect_dataset": "inspection",
+    "MixtureSampler": "mixture",
+    "Policy": "policy",
+    "UniformRandomPolicy": "policy",
+    "LinearShareSchedule": "shares",
+    "check_shares": "shares",
+    "check_spaces": "spaces",
+    "split_dataset": "split",
+    "DatasetStatistics": "statistics",
+    "dataset_statistics": "statistics",
+    "write_synthetic_dataset": "synthetic",
+    "DatasetWriter": "writer",
+}
+__all__ = sorted(_HOMES)
+
+
+def __getattr__(name: str) -> Any:
+    home = _HOMES.get(name)
+    if home is None:
+        raise AttributeError(f"module 'qadapt.data' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f"qadapt.data.{home}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(list(globals()) + __all__)

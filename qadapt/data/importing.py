@@ -201,6 +201,7 @@ def import_arrays(
                 f"{where}: shape mismatch: field {ours!r} has shape {array.shape}, expected "
                 f"[{rows}, {want}] from the given space"
             )
+    _check_values(data, field_mapping, act_space, origin)
     lengths = _episode_lengths(data, field_mapping, origin)
     check_done_flags(data["terminated"], data["truncated"], lengths, where=origin)
     source_hash = hashlib.sha256(
@@ -236,19 +237,6 @@ def import_arrays(
             stop_row = int(ends[last - 1])
             block = {name: np.asarray(array[first_row:stop_row]) for name, array in data.items()}
             block.pop("episode_index", None)
-            for ours in ("observations", "actions", "rewards", "next_observations"):
-                check_finite(
-                    block[ours],
-                    field=ours,
-                    where=f"{origin} [{field_mapping[ours]}]",
-                    first_row=first_row,
-                )
-            check_actions(
-                block["actions"],
-                act_space,
-                first_row=first_row,
-                where=f"{origin} [{field_mapping['actions']}]",
-            )
             writer.add_episodes(**block, episode_lengths=lengths[first_episode:last], where=origin)
             writer.commit_chunk()
             first_episode, first_row = last, stop_row
@@ -256,6 +244,26 @@ def import_arrays(
     except BaseException:
         writer.discard()
         raise
+
+
+def _check_values(data: dict[str, np.ndarray], mapping: dict[str, str], act_space, origin: str):
+    """NaN/Inf and action bounds, block by block, with row numbers of the whole source."""
+    rows = data["rewards"].shape[0]
+    for start in range(0, rows, _CHUNK_EPISODES_ROWS):
+        stop = min(start + _CHUNK_EPISODES_ROWS, rows)
+        for ours in ("observations", "actions", "rewards", "next_observations"):
+            check_finite(
+                np.asarray(data[ours][start:stop]),
+                field=ours,
+                first_row=start,
+                where=f"{origin} [{mapping[ours]}]",
+            )
+        check_actions(
+            np.asarray(data["actions"][start:stop]),
+            act_space,
+            first_row=start,
+            where=f"{origin} [{mapping['actions']}]",
+        )
 
 
 def _episode_lengths(data: dict[str, np.ndarray], mapping: dict[str, str], origin: str):

@@ -32,7 +32,8 @@ def as_float32(array: np.ndarray, *, field: str, where: str) -> np.ndarray:
             f"{where}: field {field!r} has dtype {array.dtype}, expected a floating dtype "
             "(stored as float32)"
         )
-    return array.astype(np.float32, copy=False)
+    with np.errstate(over="ignore"):  # values beyond float32 become inf; check_finite says so
+        return array.astype(np.float32, copy=False)
 
 
 def as_bool(array: np.ndarray, *, field: str, where: str) -> np.ndarray:
