@@ -1,0 +1,111 @@
+"""Fitted Q-iteration reaches published and analytic answers.
+
+- Control on a small MDP with a published exact answer: the 5x5 gridworld of Sutton and Barto
+  (2018, Reinforcement Learning: An Introduction, 2nd ed., Example 3.5 / Figure 3.5).
+- A one-step continuous problem with a known best action (analytic: the reward is a concave
+  quadratic in the action, maximised at a known point).
+- Both target modes (per-batch and refresh) reach the same fixed point on a small problem.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+import torch
+
+from qadapt.learner import FittedQLearner, LearnerConfig, QPolicy, TransitionArrays
+from qadapt.maximize import CrossEntropyMaximizer, ExhaustiveMaximizer
+from qadapt.nets import CriticPair, QNetworkConfig, build_q_network
+
+from . import gridworld
+
+
+@dataclass
+class FullBatch:
+    observations: torch.Tensor
+    actions: torch.Tensor
+    rewards: torch.Tensor
+    next_observations: torch.Tensor
+    terminated: torch.Tensor
+    source: torch.Tensor
+    rows: torch.Tensor
+
+
+def _full_batch(arrays: dict[str, np.ndarray]) -> FullBatch:
+    n = arrays["rewards"].shape[0]
+    return FullBatch(
+        **{k: torch.from_numpy(v) for k, v in arrays.items()},
+        source=torch.zeros(n, dtype=torch.long),
+        rows=torch.arange(n),
+    )
+
+
+def _gridworld_learner(target_mode: str, seed: int = 0) -> tuple[FittedQLearner, FullBatch]:
+    arrays = gridworld.transitions()
+    config = QNetworkConfig(torso=(128,), head=(128,), output="linear", initial_value=0.0)
+    make = lambda: build_q_network(25, torch.zeros(4), torch.ones(4), config)  # noqa: E731
+    torch.manual_seed(seed)
+    critics = CriticPair(make, seed=seed)
+    learner_config = LearnerConfig(
+        gamma=0.9, learning_rate=3e-3, batch_size=100, target_mode=target_mode,
+        refresh_every=60, target_update="copy", copy_every=0 if target_mode == "refresh" else 60,
+        loss="mse", grad_clip=0.0,
+    )
+    learner = FittedQLearner(
+        critics, ExhaustiveMaximizer.for_discrete(4), learner_config,
+        [TransitionArrays(**arrays)], seed=seed,
+    )
+    return learner, _full_batch(arrays)
+
+
+def _state_values(learner: FittedQLearner) -> np.ndarray:
+    net = learner.critics.online[0]
+    with torch.no_grad():
+        obs = torch.eye(25)
+        q = net.score(net.encode(obs), torch.eye(4).expand(25, 4, 4))
+    return q.max(dim=1).values.reshape(5, 5).numpy()
+
+
+@pytest.mark.parametrize("target_mode", ["refresh", "per_batch"])
+def test_gridworld_optimal_values_match_sutton_barto_figure_3_5(target_mode):
+    learner, batch = _gridworld_learner(target_mode)
+    for _ in range(60 * 80):  # 80 fitted iterations: 0.9**80 * 24 < 0.01
+        learner.update(batch)
+    values = _state_values(learner)
+    # Published values, Sutton & Barto (2018), Figure 3.5, top row (one decimal in the book).
+    np.testing.assert_allclose(values[0], gridworld.OPTIMAL_TOP_ROW, atol=0.1)
+
+
+def test_one_step_continuous_problem_greedy_action_is_within_002_of_the_best():
+    # Reward r(a) = -4 |a - a_best|^2 for a in [-1, 1]^2, episodes of one step
+    # (terminated), so Q(s, a) = r(a) and the greedy action must be a_best.
+    rng = np.random.default_rng(0)
+    best = np.array([0.35, -0.6], dtype=np.float32)
+    n = 4096
+    actions = rng.uniform(-1, 1, (n, 2)).astype(np.float32)
+    rewards = (-4.0 * ((actions - best) ** 2).sum(1)).astype(np.float32)
+    obs = np.zeros((n, 1), dtype=np.float32)
+    arrays = {
+        "observations": obs, "actions": actions, "rewards": rewards,
+        "next_observations": obs, "terminated": np.ones(n, dtype=np.float32),
+    }
+    config = QNetworkConfig(torso=(16,), head=(64, 64), output="linear", initial_value=0.0)
+    make = lambda: build_q_network(1, -torch.ones(2), torch.ones(2), config)  # noqa: E731
+    torch.manual_seed(0)
+    critics = CriticPair(make, seed=0)
+    cem = CrossEntropyMaximizer([-1, -1], [1, 1], samples=128, elites=8, iterations=4)
+    learner = FittedQLearner(
+        critics, cem, LearnerConfig(learning_rate=3e-3, loss="mse", refresh_every=10_000),
+        [TransitionArrays(**arrays)], seed=0,
+    )
+    g = torch.Generator().manual_seed(1)
+    for _ in range(1500):
+        rows = torch.randint(0, n, (256,), generator=g)
+        batch = _full_batch({k: v[rows.numpy()] for k, v in arrays.items()})
+        batch.rows = rows
+        learner.update(batch)
+    policy = QPolicy(learner.acting_network(), cem, seed=3)
+    chosen = policy.act(np.zeros((16, 1), dtype=np.float32))
+    assert np.abs(chosen - best).max() < 0.02
