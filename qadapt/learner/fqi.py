@@ -40,8 +40,8 @@ class Batch(Protocol):
     rewards: torch.Tensor
     next_observations: torch.Tensor
     terminated: torch.Tensor
-    source: torch.Tensor
-    rows: torch.Tensor
+    source_index: torch.Tensor
+    row_index: torch.Tensor
 
 
 class FittedQLearner:
@@ -115,7 +115,7 @@ class FittedQLearner:
 
     def _batch_targets(self, batch: Batch) -> tuple[torch.Tensor, torch.Tensor | None]:
         if self.cache is not None:
-            return self.cache.lookup(batch.source, batch.rows)
+            return self.cache.lookup(batch.source_index, batch.row_index)
         values, _ = bootstrap_values(
             self.critics, self.maximizer, batch.next_observations, self.generator
         )

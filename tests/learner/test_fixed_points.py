@@ -29,16 +29,16 @@ class FullBatch:
     rewards: torch.Tensor
     next_observations: torch.Tensor
     terminated: torch.Tensor
-    source: torch.Tensor
-    rows: torch.Tensor
+    source_index: torch.Tensor
+    row_index: torch.Tensor
 
 
 def _full_batch(arrays: dict[str, np.ndarray]) -> FullBatch:
     n = arrays["rewards"].shape[0]
     return FullBatch(
         **{k: torch.from_numpy(v) for k, v in arrays.items()},
-        source=torch.zeros(n, dtype=torch.long),
-        rows=torch.arange(n),
+        source_index=torch.zeros(n, dtype=torch.long),
+        row_index=torch.arange(n),
     )
 
 
@@ -104,7 +104,7 @@ def test_one_step_continuous_problem_greedy_action_is_within_002_of_the_best():
     for _ in range(1500):
         rows = torch.randint(0, n, (256,), generator=g)
         batch = _full_batch({k: v[rows.numpy()] for k, v in arrays.items()})
-        batch.rows = rows
+        batch.row_index = rows
         learner.update(batch)
     policy = QPolicy(learner.acting_network(), cem, seed=3)
     chosen = policy.act(np.zeros((16, 1), dtype=np.float32))

@@ -44,7 +44,7 @@ def _batches(arrays, count, seed):
     for _ in range(count):
         rows = torch.randint(0, 512, (32,), generator=g)
         yield FullBatch(**{k: v[rows] for k, v in t.items()},
-                        source=torch.zeros(32, dtype=torch.long), rows=rows)
+                        source_index=torch.zeros(32, dtype=torch.long), row_index=rows)
 
 
 @pytest.mark.parametrize("target_mode", ["refresh", "per_batch"])
