@@ -15,7 +15,7 @@ import numpy as np
 
 from qadapt.data.files import resolve_member
 from qadapt.data.manifest import Manifest, read_manifest
-from qadapt.data.npy_files import NpyHeader, read_npy_header, read_rows
+from qadapt.data.npy_files import NpyHeader, RowReader, read_npy_header, read_rows
 from qadapt.data.schema import MANIFEST_NAME
 from qadapt.data.verification import verify_files
 from qadapt.errors import BadInput
@@ -155,6 +155,13 @@ class ReplayDataset:
         self._check_name(name)
         self.verify()
         return read_rows(self._paths[name], self._headers[name], start, stop)
+
+    def row_reader(self, name: str) -> RowReader:
+        """A reader that copies row ranges of field ``name`` into caller buffers with plain
+        reads (verifies the dataset first if needed)."""
+        self._check_name(name)
+        self.verify()
+        return RowReader(self._paths[name], self._headers[name])
 
 
 def open_dataset(path: str | Path, verify: bool = True) -> ReplayDataset:

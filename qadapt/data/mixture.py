@@ -42,13 +42,20 @@ class MixtureSampler:
     ``shares`` defaults to equal shares; ``schedule`` (instead of ``shares``) moves the shares
     linearly from one vector to another over a number of batches.
 
-    Speed: indices for ``block_batches`` batches are drawn at once (seeded numpy Generator,
-    no per-row Python loop), every field is gathered for the whole block with one
-    ``torch.index_select`` per source, and batches are handed out as contiguous views of the
-    block. Memory: ``memory_limit_bytes=None`` gathers straight from the memory maps;
-    ``in_memory=True`` copies the sampled fields into RAM first (fastest, costs their size);
-    ``memory_limit_bytes=N`` keeps the sampler's own memory (block buffers plus mapped file
-    pages) near ``N`` by gathering file windows in turn and unmapping each after use.
+    Speed: indices for ``block_batches`` batches (default 64) are drawn at once (seeded numpy
+    Generator, no per-row Python loop), each field is gathered for the whole block with one
+    ``torch.index_select`` per source (on one torch thread), and batches are handed out as
+    contiguous views of the block. The small fields (actions, reward, flags: ``4 * (act_dim +
+    3)`` bytes per transition) are always packed into one in-memory array.
+
+    Memory, for observations and next observations (nearly all of a dataset's bytes):
+    ``memory_limit_bytes=None`` (default) gathers straight from the memory maps; fastest, but
+    the kernel keeps every page it maps resident (shared, reclaimable page cache), so over a
+    long run the resident size approaches the size of those files. ``in_memory=True`` copies
+    them into RAM first. ``memory_limit_bytes=N`` keeps what the sampler holds (blocks, scratch
+    and one file window, read with plain reads into a reused buffer) near ``N``; blocks are
+    then as large as the limit allows and each block reads the observation files once.
+    ``scripts/bench_data_memory`` measures all three.
 
     Every dataset is verified (checksums and contents) before its first batch, if it was not
     already. ``state_dict()`` records the generator at the start of the current block and the
@@ -76,7 +83,7 @@ class MixtureSampler:
         seed: int = 0,
         schedule: LinearShareSchedule | None = None,
         *,
-        block_batches: int = 64,
+        block_batches: int | None = None,
         memory_limit_bytes: int | None = None,
         in_memory: bool = False,
     ) -> None:
@@ -120,25 +127,34 @@ class MixtureSampler:
         first = self.datasets[0]
         self.obs_dim, self.act_dim = int(first.obs_dim), int(first.act_dim)
         self._row_bytes = 4 * (2 * self.obs_dim + self.act_dim + 3) + 16
-        block_batches = _positive_int(block_batches, "block_batches")
         if memory_limit_bytes is not None:
-            # A quarter of the limit for the block being handed out, a quarter for the one
-            # a caller may still hold, a quarter for scratch and a quarter for the mapped window.
-            fit = memory_limit_bytes // 4 // (self._row_bytes * self.batch_size)
-            block_batches = max(1, min(block_batches, fit)) if fit >= 1 else 1
+            # A quarter of the limit for the block being handed out, a quarter for the one a
+            # caller may still hold, a quarter for the gather's scratch and a quarter for the
+            # file window. Blocks as large as that allows: each block reads the files once.
+            fit = max(1, memory_limit_bytes // 4 // (self._row_bytes * self.batch_size))
+            wanted = fit if block_batches is None else _positive_int(block_batches, "block_batches")
+            block_batches = min(wanted, fit)
             self._sources = [WindowedRows(d, memory_limit_bytes // 4) for d in self.datasets]
-        elif self.in_memory:
-            self._sources = [InMemoryRows(d) for d in self.datasets]
         else:
-            self._sources = [MappedRows(d) for d in self.datasets]
+            block_batches = (
+                64 if block_batches is None else _positive_int(block_batches, "block_batches")
+            )
+            row_source = InMemoryRows if self.in_memory else MappedRows
+            self._sources = [row_source(d) for d in self.datasets]
         self.block_batches = block_batches
         self._generator = np.random.default_rng(self.seed)
         self._batches_drawn = 0
         self._block_start = 0
         self._block_state = self._generator.bit_generator.state
         self._block: list[ReplayBatch] = []
-        self._scratch: dict[str, torch.Tensor] = {}
         self._pool = BlockPool()
+        self._block_bytes, self._layout = self._block_layout()
+        # Per-source gathers of a mixed block land here before going to their rows.
+        self._scratch: dict[str, torch.Tensor] = {}
+        if len(self._sources) > 1:
+            rows = self.block_batches * self.batch_size
+            for name, shape in self._sources[0].row_shapes.items():
+                self._scratch[name] = torch.empty((rows, *shape), dtype=torch.float32)
 
     def _check_compatible(self) -> None:
         first = self.datasets[0]
@@ -180,53 +196,31 @@ class MixtureSampler:
         self._block_start = first_batch
         self._block_state = self._generator.bit_generator.state
         self._block = []  # let the old block's buffer go back to the pool
-        self._block = self._draw_block(first_batch)
+        # Gathering is memory-bound: a second thread adds little, and on a shared 2-core
+        # machine torch's worker threads waiting for a busy core made one block ~50x slower
+        # (measured 125 vs 2.6 us per batch of 256 x 61 floats). So: one thread, restored after.
+        threads = torch.get_num_threads()
+        torch.set_num_threads(1)
+        try:
+            self._block = self._draw_block(first_batch)
+        finally:
+            torch.set_num_threads(threads)
 
     def _draw_block(self, first_batch: int) -> list[ReplayBatch]:
         count, size = self.block_batches, self.batch_size
         rows_total = count * size
         sources = len(self._sources)
         generator = self._generator
+        fields = self._allocate_block()
         if sources == 1:
-            counts = np.full((count, 1), size, dtype=np.int64)
+            chosen = generator.integers(0, self._sources[0].transitions, rows_total, dtype=np.int64)
+            self._sources[0].gather(chosen, fields)
+            fields["row_index"].copy_(torch.from_numpy(chosen))
+            fields["source_index"].zero_()
         else:
             shares = self.schedule.shares_at(np.arange(first_batch, first_batch + count))
-            counts = generator.multinomial(size, shares)
-        fields = self._allocate_block(rows_total)
-        row_index = np.empty(rows_total, dtype=np.int64)
-        source_index = np.repeat(np.tile(np.arange(sources), count), counts.reshape(-1))
-        offsets = np.cumsum(counts, axis=1) - counts  # where each source starts in its batch
-        for s, rows in enumerate(self._sources):
-            per_batch = counts[:, s]
-            total = int(per_batch.sum())
-            if total == 0:
-                continue
-            chosen = generator.integers(0, rows.transitions, total, dtype=np.int64)
-            if sources == 1:
-                row_index[:] = chosen
-                rows.gather(chosen, self._targets(fields))
-                continue
-            # Destination of every chosen row: its batch's start + its source's offset + rank.
-            starts = np.arange(count, dtype=np.int64) * size + offsets[:, s]
-            rank = np.arange(total, dtype=np.int64) - np.repeat(
-                np.cumsum(per_batch) - per_batch, per_batch
-            )
-            destination = np.repeat(starts, per_batch) + rank
-            row_index[destination] = chosen
-            scratch = self._scratch_outputs(total)
-            rows.gather(chosen, scratch)
-            where = torch.from_numpy(destination)
-            for name in SAMPLED_FIELDS:
-                target = (
-                    fields[name]
-                    if name not in ("terminated", "truncated")
-                    else (self._flag_scratch(name, rows_total))
-                )
-                target.index_copy_(0, where, scratch[name])
-        for name in ("terminated", "truncated"):
-            fields[name].copy_(self._flag_scratch(name, rows_total))
-        fields["row_index"].copy_(torch.from_numpy(row_index))
-        fields["source_index"].copy_(torch.from_numpy(source_index))
+            counts = generator.multinomial(size, shares)  # [count, sources]
+            self._gather_mixed(counts, fields)
         views = {
             name: tensor.view(count, size, *tensor.shape[1:]).unbind(0)
             for name, tensor in fields.items()
@@ -245,59 +239,62 @@ class MixtureSampler:
             for k in range(count)
         ]
 
-    def _allocate_block(self, rows: int) -> dict[str, torch.Tensor]:
+    def _gather_mixed(self, counts: np.ndarray, fields: dict[str, torch.Tensor]) -> None:
+        """Fill a block from several sources; ``counts[k, s]`` rows of batch k from source s,
+        laid out source after source within each batch."""
+        count, size = counts.shape[0], self.batch_size
+        row_index = np.empty(count * size, dtype=np.int64)
+        source_index = np.repeat(np.tile(np.arange(len(self._sources)), count), counts.ravel())
+        offsets = np.cumsum(counts, axis=1) - counts  # where each source starts in its batch
+        for s, rows in enumerate(self._sources):
+            per_batch = counts[:, s]
+            total = int(per_batch.sum())
+            if total == 0:
+                continue
+            chosen = self._generator.integers(0, rows.transitions, total, dtype=np.int64)
+            # Destination of every chosen row: its batch's start + its source's offset + rank.
+            starts = np.arange(count, dtype=np.int64) * size + offsets[:, s]
+            rank = np.arange(total, dtype=np.int64) - np.repeat(
+                np.cumsum(per_batch) - per_batch, per_batch
+            )
+            destination = np.repeat(starts, per_batch) + rank
+            row_index[destination] = chosen
+            scratch = {name: self._scratch[name][:total] for name in SAMPLED_FIELDS}
+            rows.gather(chosen, scratch)
+            where = torch.from_numpy(destination)
+            for name in SAMPLED_FIELDS:
+                fields[name].index_copy_(0, where, scratch[name])
+        fields["row_index"].copy_(torch.from_numpy(row_index))
+        fields["source_index"].copy_(torch.from_numpy(source_index))
+
+    def _block_layout(self) -> tuple[int, list[tuple[str, torch.dtype, tuple, int, int]]]:
+        """Byte size of a block and, per field, ``(name, dtype, shape, offset, bytes)``."""
+        rows = self.block_batches * self.batch_size
+        fields = (
+            ("observations", torch.float32, (rows, self.obs_dim)),
+            ("next_observations", torch.float32, (rows, self.obs_dim)),
+            ("actions", torch.float32, (rows, self.act_dim)),
+            ("rewards", torch.float32, (rows,)),
+            ("terminated", torch.float32, (rows,)),
+            ("truncated", torch.float32, (rows,)),
+            ("source_index", torch.int64, (rows,)),
+            ("row_index", torch.int64, (rows,)),
+        )
+        layout, offset = [], 0
+        for name, dtype, shape in fields:
+            nbytes = int(np.prod(shape)) * dtype.itemsize
+            layout.append((name, dtype, shape, offset, nbytes))
+            offset += -(-nbytes // _ALIGN) * _ALIGN
+        return offset, layout
+
+    def _allocate_block(self) -> dict[str, torch.Tensor]:
         """One buffer for the whole block, carved into contiguous per-field views. The pool
         reuses a buffer only when no batch viewing it is alive."""
-        layout = (
-            ("observations", torch.float32, (self.obs_dim,)),
-            ("next_observations", torch.float32, (self.obs_dim,)),
-            ("actions", torch.float32, (self.act_dim,)),
-            ("rewards", torch.float32, ()),
-            ("terminated", torch.float32, ()),
-            ("truncated", torch.float32, ()),
-            ("source_index", torch.int64, ()),
-            ("row_index", torch.int64, ()),
-        )
-        sizes = []
-        for _, dtype, shape in layout:
-            nbytes = rows * int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
-            sizes.append(-(-nbytes // _ALIGN) * _ALIGN)
-        storage = self._pool.take(sum(sizes))
-        fields, offset = {}, 0
-        for (name, dtype, shape), nbytes in zip(layout, sizes, strict=True):
-            used = rows * int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
-            fields[name] = storage[offset : offset + used].view(dtype).view(rows, *shape)
-            offset += nbytes
-        return fields
-
-    def _flag_scratch(self, name: str, rows: int) -> torch.Tensor:
-        key = f"flag:{name}"
-        scratch = self._scratch.get(key)
-        if scratch is None or scratch.shape[0] != rows:
-            scratch = torch.empty(rows, dtype=torch.bool)
-            self._scratch[key] = scratch
-        return scratch
-
-    def _targets(self, fields: dict[str, torch.Tensor]) -> dict[str, torch.Tensor]:
-        rows = fields["rewards"].shape[0]
-        targets = dict(fields)
-        for name in ("terminated", "truncated"):
-            targets[name] = self._flag_scratch(name, rows)
-        return targets
-
-    def _scratch_outputs(self, rows: int) -> dict[str, torch.Tensor]:
-        outputs = {}
-        source = self._sources[0].tensors
-        for name in SAMPLED_FIELDS:
-            key = f"gather:{name}"
-            scratch = self._scratch.get(key)
-            if scratch is None or scratch.shape[0] < rows:
-                tensor = source[name]
-                capacity = self.block_batches * self.batch_size
-                scratch = torch.empty((capacity, *tensor.shape[1:]), dtype=tensor.dtype)
-                self._scratch[key] = scratch
-            outputs[name] = scratch[:rows]
-        return outputs
+        storage = self._pool.take(self._block_bytes)
+        return {
+            name: storage[offset : offset + nbytes].view(dtype).view(shape)
+            for name, dtype, shape, offset, nbytes in self._layout
+        }
 
     # -- resuming -------------------------------------------------------------------------
     def _identity(self) -> dict[str, Any]:

@@ -7,6 +7,7 @@ Holds:
     scan_blocks -- read a ``.npy`` file's rows block by block (plain reads, reused buffer),
         feeding every byte to a hash.
     read_rows -- copy rows ``[start, stop)`` of a ``.npy`` file into memory with plain reads.
+    RowReader -- an open ``.npy`` file that copies row ranges into a caller's buffer.
 """
 
 from __future__ import annotations
@@ -205,3 +206,52 @@ def read_rows(path: Path, header: NpyHeader, start: int, stop: int) -> np.ndarra
         if handle.readinto(memoryview(out).cast("B")) != want:
             raise BadInput(f"{path}: file shrank while being read (truncated copy?)")
     return out
+
+
+class RowReader:
+    """Copies row ranges of one ``.npy`` file into caller-provided buffers (``os.preadv``).
+
+    Plain reads go through the page cache without mapping it into the process, so repeated
+    reads do not raise the process's resident size.
+
+    Example:
+        >>> import tempfile
+        >>> p = Path(tempfile.mkdtemp()) / "a.npy"
+        >>> np.save(p, np.arange(10, dtype=np.int64))
+        >>> reader = RowReader(p, read_npy_header(p, field="a"))
+        >>> buffer = np.empty(3, np.int64)
+        >>> reader.read_into(4, buffer).tolist()
+        [4, 5, 6]
+        >>> reader.close()
+    """
+
+    def __init__(self, path: Path, header: NpyHeader) -> None:
+        self.path = Path(path)
+        self.header = header
+        self._descriptor = os.open(self.path, os.O_RDONLY)
+
+    def read_into(self, start: int, out: np.ndarray) -> np.ndarray:
+        """Fill ``out`` (C-contiguous, the file's dtype, ``[n, *row_shape]``) with rows
+        ``[start, start + n)``; return ``out``."""
+        count = out.shape[0]
+        if not 0 <= start <= start + count <= self.header.shape[0]:
+            raise ValueError(f"rows [{start}, {start + count}) outside [0, {self.header.shape[0]})")
+        if count == 0:
+            return out
+        want = count * self.header.row_bytes
+        got = os.preadv(
+            self._descriptor,
+            [memoryview(out).cast("B")],
+            self.header.data_offset + start * self.header.row_bytes,
+        )
+        if got != want:
+            raise BadInput(f"{self.path}: file shrank while being read (truncated copy?)")
+        return out
+
+    def close(self) -> None:
+        if self._descriptor >= 0:
+            os.close(self._descriptor)
+            self._descriptor = -1
+
+    def __del__(self) -> None:
+        self.close()
