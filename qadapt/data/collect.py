@@ -27,6 +27,7 @@ from qadapt.data.policy import Policy
 from qadapt.data.schema import FORMAT_VERSION
 from qadapt.data.spaces import DiscreteDescription, describe_space
 from qadapt.data.statistics import dataset_statistics
+from qadapt.data.step_log import StepLog
 from qadapt.data.validation import check_actions
 from qadapt.data.writer import DatasetWriter, check_collector_record
 from qadapt.errors import BadInput
@@ -73,11 +74,14 @@ def _run_digest(description: dict[str, Any]) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
-def _chunk_seeds(seed: int, chunk: int, count: int) -> tuple[list[int], int]:
-    """Reset seeds for ``count`` sub-environments and one policy seed for chunk ``chunk``."""
-    env_seeds = np.random.SeedSequence([seed, chunk, 0]).generate_state(count)
-    policy_seed = np.random.SeedSequence([seed, chunk, 1]).generate_state(1)[0]
-    return [int(s) for s in env_seeds], int(policy_seed)
+def _chunk_seeds(seed: int, chunk: int) -> tuple[int, int]:
+    """``(reset seed, policy seed)`` for chunk ``chunk``.
+
+    One integer reset seed, because batched VectorEnv implementations accept only that;
+    gymnasium's Sync/AsyncVectorEnv seed their sub-environments ``s, s + 1, ...`` from it.
+    """
+    env_seed, policy_seed = np.random.SeedSequence([seed, chunk]).generate_state(2)
+    return int(env_seed), int(policy_seed)
 
 
 def _success_flags(infos: dict[str, Any], count: int) -> tuple[np.ndarray, np.ndarray]:
@@ -88,30 +92,6 @@ def _success_flags(infos: dict[str, Any], count: int) -> tuple[np.ndarray, np.nd
     mask = infos.get("_is_success")
     reported = np.ones(count, dtype=bool) if mask is None else np.asarray(mask, dtype=bool)
     return values & reported, reported
-
-
-class _EpisodeBuffer:
-    """The steps of one sub-environment's running episode."""
-
-    __slots__ = ("steps",)
-
-    def __init__(self) -> None:
-        self.steps: list[tuple] = []
-
-    def arrays(self, keep: int | None = None) -> dict[str, np.ndarray]:
-        steps = self.steps if keep is None else self.steps[:keep]
-        columns = list(zip(*steps, strict=True))
-        names = (
-            "observations",
-            "actions",
-            "rewards",
-            "next_observations",
-            "terminated",
-            "truncated",
-            "success",
-            "success_reported",
-        )
-        return {name: np.asarray(column) for name, column in zip(names, columns, strict=True)}
 
 
 def _to_env_actions(actions: np.ndarray, space, count: int) -> tuple[np.ndarray, np.ndarray]:
@@ -294,18 +274,24 @@ def _collect_chunk(
     target_episodes,
     target_transitions,
 ) -> None:
-    """Collect one chunk of complete episodes from freshly seeded sub-environments, commit it."""
-    env_seeds, policy_seed = _chunk_seeds(seed, writer.committed_chunks, count)
+    """Collect one chunk of complete episodes from freshly seeded sub-environments, commit it.
+
+    Episodes are kept in the order they finish (sub-environment order within a step); the
+    chunk ends at the first episode that reaches the episode target, the transition target
+    (that episode is cut to fit) or the chunk size. Episodes still running are dropped.
+    """
+    env_seed, policy_seed = _chunk_seeds(seed, writer.committed_chunks)
     if callable(getattr(policy, "reseed", None)):
         policy.reseed(policy_seed)
-    observations, _ = vector_env.reset(seed=env_seeds)
+    observations, _ = vector_env.reset(seed=env_seed)
     # Copies: a vector env built with copy=False reuses its observation buffer every step.
     observations = np.array(observations, dtype=np.float32)
+    log = StepLog(count, observations.shape[1], action_space.width)
     restarting = np.zeros(count, dtype=bool)  # this step returns a reset observation
-    buffers = [_EpisodeBuffer() for _ in range(count)]
-    completed: list[dict[str, np.ndarray]] = []
-    rows = 0
-    base_episodes, base_transitions = writer.committed_episodes, writer.committed_transitions
+    blocks: list[dict[str, np.ndarray]] = []
+    lengths_so_far: list[np.ndarray] = []
+    episodes, rows = writer.committed_episodes, writer.committed_transitions
+    chunk_rows = 0
     while True:
         stored, env_actions = _to_env_actions(policy.act(observations), action_space, count)
         check_actions(stored, action_space, where="policy.act output")
@@ -314,44 +300,52 @@ def _collect_chunk(
         terminated = np.asarray(terminated, dtype=bool)
         truncated = np.asarray(truncated, dtype=bool)
         success, reported = _success_flags(infos, count)
-        for i in np.flatnonzero(~restarting):
-            buffers[i].steps.append(
-                (
-                    observations[i],
-                    stored[i],
-                    float(rewards[i]),
-                    next_observations[i],
-                    bool(terminated[i]),
-                    bool(truncated[i]),
-                    bool(success[i]),
-                    bool(reported[i]),
-                )
-            )
-            if not (terminated[i] or truncated[i]):
-                continue
-            episode = buffers[i].arrays()
-            buffers[i] = _EpisodeBuffer()
-            length = episode["rewards"].shape[0]
+        log.record(
+            observations=observations,
+            actions=stored,
+            rewards=rewards,
+            next_observations=next_observations,
+            terminated=terminated,
+            truncated=truncated,
+            success=success,
+            success_reported=reported,
+            restarting=restarting,
+        )
+        finished = np.flatnonzero((terminated | truncated) & ~restarting)
+        if finished.size:
+            block, lengths = log.take(finished)
+            # Which of these episodes (in order) reaches a stopping point first?
+            after = np.cumsum(lengths)
+            stops = [finished.size]
+            if target_episodes is not None:
+                stops.append(target_episodes - episodes)
             if target_transitions is not None:
-                room = target_transitions - (base_transitions + rows)
-                if length > room:
-                    episode = {name: array[:room] for name, array in episode.items()}
-                    length = room
-            completed.append(episode)
-            rows += length
-            bar.update(1 if target_episodes is not None else length)
-            if target_episodes is not None and base_episodes + len(completed) >= target_episodes:
-                return _commit(writer, completed)
-            if target_transitions is not None and base_transitions + rows >= target_transitions:
-                return _commit(writer, completed)
-            if rows >= chunk_transitions:
-                return _commit(writer, completed)
+                stops.append(int(np.searchsorted(after, target_transitions - rows)) + 1)
+            stops.append(int(np.searchsorted(after, chunk_transitions - chunk_rows)) + 1)
+            keep = min(stops)
+            lengths = lengths[:keep].copy()
+            if target_transitions is not None:
+                lengths[-1] -= max(0, rows + int(lengths.sum()) - target_transitions)
+            kept_rows = int(lengths.sum())
+            blocks.append({name: array[:kept_rows] for name, array in block.items()})
+            lengths_so_far.append(lengths)
+            episodes += keep
+            rows += kept_rows
+            chunk_rows += kept_rows
+            bar.update(keep if target_episodes is not None else kept_rows)
+            if keep < finished.size or (
+                (target_episodes is not None and episodes >= target_episodes)
+                or (target_transitions is not None and rows >= target_transitions)
+                or chunk_rows >= chunk_transitions
+            ):
+                return _commit(writer, blocks, lengths_so_far)
         observations = next_observations
         restarting = terminated | truncated
 
 
-def _commit(writer: DatasetWriter, completed: list[dict[str, np.ndarray]]) -> None:
-    block = {name: np.concatenate([e[name] for e in completed]) for name in completed[0]}
-    lengths = np.array([e["rewards"].shape[0] for e in completed], dtype=np.int64)
-    writer.add_episodes(**block, episode_lengths=lengths, where="collected episodes")
+def _commit(writer: DatasetWriter, blocks: list[dict[str, np.ndarray]], lengths: list) -> None:
+    block = {name: np.concatenate([b[name] for b in blocks]) for name in blocks[0]}
+    writer.add_episodes(
+        **block, episode_lengths=np.concatenate(lengths), where="collected episodes"
+    )
     writer.commit_chunk()

@@ -74,6 +74,30 @@ def test_cartpole_episode_count_and_next_step_autoreset(tmp_path):
     assert dataset.action_space.to_json() == {"type": "discrete", "n": 2, "start": 0}
 
 
+def test_batched_vector_env_with_an_integer_seed(tmp_path):
+    # gymnasium's own batched CartPole (vector_entry_point) takes only an integer reset seed,
+    # like other batched implementations; the collector must work with it.
+    envs = gymnasium.make_vec("CartPole-v1", 64, vectorization_mode="vector_entry_point")
+    summary = collect(
+        envs,
+        UniformRandomPolicy(envs.single_action_space, seed=0),
+        episodes=300,
+        out=tmp_path / "batched",
+        seed=2,
+        env_record=_record("CartPole-v1"),
+        progress=False,
+        chunk_transitions=2000,
+    )
+    dataset = open_dataset(summary.path)
+    assert dataset.episode_count == 300 and summary.chunks > 1
+    assert (dataset.array("rewards") == 1.0).all()  # no reset step recorded
+    index = dataset.array("episode_index")
+    inside = index[1:] == index[:-1]
+    np.testing.assert_array_equal(
+        dataset.array("next_observations")[:-1][inside], dataset.array("observations")[1:][inside]
+    )
+
+
 def test_pendulum_exact_transition_count_with_cut_last_episode(tmp_path):
     envs = gymnasium.make_vec("Pendulum-v1", 2, vectorization_mode="sync")
     summary = collect(
