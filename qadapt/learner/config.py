@@ -39,6 +39,8 @@ class LearnerConfig:
             source every ``refresh_every`` steps, warm-starting the maximiser from the last
             refresh) or "per_batch" (targets for each sampled batch; the reference).
         refresh_every: gradient steps between refreshes (refresh mode).
+        refresh_blend: share of the freshly computed targets a refresh takes (1 = all;
+            smaller values move the cached targets gradually).
         target_update: "copy" (target critics <- online ones every ``copy_every`` steps; in
             refresh mode, at every refresh when ``copy_every`` is 0) or "polyak" (``tau``).
         loss: "cross_entropy" (sigmoid outputs, targets in [0, 1]), "huber" or "mse".
@@ -46,6 +48,11 @@ class LearnerConfig:
         conservative_weight: weight of the CQL regulariser (0 = off).
         conservative_samples: uniform random actions per state in the regulariser.
         conservative_temperature: temperature of the regulariser's soft maximum.
+        conservative_at_maximum: include the maximiser's action at each state among the
+            regulariser's sampled actions.
+        conservative_maximum: "online" (search the online critic's maximum for each batch)
+            or "cached" (the target critic's maximum found at the last refresh; cheaper, but
+            chasing a stale maximum can make the policy swing from refresh to refresh).
         conservative_on: "raw" (the network's outputs: logits for a sigmoid output) or
             "value" (Q itself, bounded in (0, 1) for a sigmoid output).
         anchor_weight: weight of the L2 penalty towards given anchor weights (0 = off).
@@ -64,6 +71,7 @@ class LearnerConfig:
     batch_size: int = 256
     target_mode: str = "refresh"
     refresh_every: int = 500
+    refresh_blend: float = 1.0
     target_update: str = "copy"
     copy_every: int = 0
     tau: float = 0.005
@@ -74,6 +82,8 @@ class LearnerConfig:
     conservative_samples: int = 8
     conservative_temperature: float = 1.0
     conservative_on: str = "raw"
+    conservative_at_maximum: bool = True
+    conservative_maximum: str = "online"
     anchor_weight: float = 0.0
     ema_decay: float = 0.0
     q_limit: float = 1e4
@@ -90,6 +100,8 @@ class LearnerConfig:
                f"one of {', '.join(TARGET_MODES)}")
         _check("refresh_every", _is_int(self.refresh_every) and self.refresh_every >= 1,
                self.refresh_every, "a positive integer")
+        _check("refresh_blend", _is_num(self.refresh_blend) and 0 < self.refresh_blend <= 1,
+               self.refresh_blend, "a number in (0, 1]")
         _check("target_update", self.target_update in TARGET_UPDATES, self.target_update,
                f"one of {', '.join(TARGET_UPDATES)}")
         _check("copy_every", _is_int(self.copy_every) and self.copy_every >= 0,
@@ -113,6 +125,8 @@ class LearnerConfig:
         _check("conservative_temperature",
                _is_num(self.conservative_temperature) and self.conservative_temperature > 0,
                self.conservative_temperature, "a positive number")
+        _check("conservative_maximum", self.conservative_maximum in ("online", "cached"),
+               self.conservative_maximum, "'online' or 'cached'")
         _check("conservative_on", self.conservative_on in ("raw", "value"),
                self.conservative_on, "'raw' or 'value'")
         _check("ema_decay", _is_num(self.ema_decay) and 0.0 <= self.ema_decay < 1.0,

@@ -88,7 +88,9 @@ class FittedQLearner:
         if config.target_mode == "refresh":
             self.cache = TargetCache(
                 [len(s) for s in self.sources], net.action_dim,
-                with_state_actions=config.conservative_weight > 0,
+                with_state_actions=config.conservative_weight > 0
+                and config.conservative_at_maximum
+                and config.conservative_maximum == "cached",
             )
         self.ema: nn.Module | None = None
         if config.ema_decay > 0:
@@ -109,28 +111,32 @@ class FittedQLearner:
         start = time.perf_counter()
         self.cache.refresh(
             self.critics, self.maximizer, self.sources, self.config.gamma, self.generator,
-            self.config.refresh_chunk, self._clamp,
+            self.config.refresh_chunk, self._clamp, self.config.refresh_blend,
         )
         self.last_refresh_seconds = time.perf_counter() - start
 
     def _batch_targets(self, batch: Batch) -> tuple[torch.Tensor, torch.Tensor | None]:
-        if self.cache is not None:
-            return self.cache.lookup(batch.source_index, batch.row_index)
-        values, _ = bootstrap_values(
-            self.critics, self.maximizer, batch.next_observations, self.generator
-        )
-        y = td_targets(batch.rewards, batch.terminated, values, self.config.gamma)
-        if self._clamp is not None:
-            y = y.clamp(*self._clamp)
+        """Targets [B] for the batch, and the state actions the penalty needs (or None)."""
+        cfg = self.config
         state_actions = None
-        if self.config.conservative_weight > 0:
+        if self.cache is not None:
+            targets, state_actions = self.cache.lookup(batch.source_index, batch.row_index)
+        else:
+            values, _ = bootstrap_values(
+                self.critics, self.maximizer, batch.next_observations, self.generator
+            )
+            targets = td_targets(batch.rewards, batch.terminated, values, cfg.gamma)
+            if self._clamp is not None:
+                targets = targets.clamp(*self._clamp)
+        wants_online = cfg.conservative_maximum == "online" or self.cache is None
+        if cfg.conservative_weight > 0 and cfg.conservative_at_maximum and wants_online:
             first = self.critics.online[0]
             with torch.no_grad():
                 code = first.encode(batch.observations)
                 state_actions = self.maximizer.maximize(
                     lambda c: first.score(code, c), code.shape[0], generator=self.generator
                 ).actions
-        return y, state_actions
+        return targets, state_actions
 
     # -- one step ------------------------------------------------------------------------
     def update(self, batch: Batch) -> dict[str, torch.Tensor]:
@@ -150,9 +156,10 @@ class FittedQLearner:
                 uniform = self._action_low + self._action_span * torch.rand(
                     b, cfg.conservative_samples, net.action_dim, generator=self.generator
                 )
-                candidates = torch.cat(
-                    [batch.actions[:, None], state_actions[:, None], uniform], dim=1
-                )
+                parts = [batch.actions[:, None], uniform]
+                if state_actions is not None:
+                    parts.insert(1, state_actions[:, None])
+                candidates = torch.cat(parts, dim=1)
                 raw_all = net.score(code, candidates)
                 raw = raw_all[:, 0]
                 values_all = raw_all if cfg.conservative_on == "raw" else net.value(raw_all)

@@ -105,9 +105,16 @@ class TargetCache:
         generator: torch.Generator,
         chunk: int,
         clamp: tuple[float, float] | None = None,
+        blend: float = 1.0,
     ) -> None:
-        """Recompute every source's targets with the current target critics."""
+        """Recompute every source's targets with the current target critics.
+
+        With ``blend`` b < 1 the cache moves only part of the way: targets <- b * new +
+        (1 - b) * old (the first refresh takes the new targets whole). This damps the
+        period-two swings that replacing every target at once can set off.
+        """
         warm = self.refreshes > 0
+        keep = 1.0 - blend if warm else 0.0
         for s, source in enumerate(sources):
             for start in range(0, len(source), chunk):
                 rows = slice(start, min(start + chunk, len(source)))
@@ -117,7 +124,9 @@ class TargetCache:
                 )
                 y = td_targets(_tensor(source.rewards[rows]), _tensor(source.terminated[rows]),
                                values, gamma)
-                self.targets[s][rows] = y if clamp is None else y.clamp(*clamp)
+                if clamp is not None:
+                    y = y.clamp(*clamp)
+                self.targets[s][rows] = keep * self.targets[s][rows] + (1.0 - keep) * y
                 self.next_actions[s][rows] = actions
                 if self.with_state_actions:
                     obs = _tensor(source.observations[rows])

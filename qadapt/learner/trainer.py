@@ -1,0 +1,262 @@
+"""A training run: gradient steps with evaluation, logging, kept checkpoints and exact resume.
+
+Holds:
+    TrainingPlan -- how long to train and how often to evaluate, log and checkpoint.
+    GreedyEvaluator -- greedy success of a Q-network on a batched env (cheap, seeded).
+    TrainingOutcome -- what a run produced: steps, evaluation history, best and last.
+    Trainer -- drives a FittedQLearner over a sampler; resumes from its last checkpoint.
+
+The run directory holds ``checkpoints/last`` (weights plus the full training state: learner,
+sampler, evaluation history; rewritten atomically every ``checkpoint_every`` steps and at the
+end) and ``checkpoints/best`` (the acting weights that scored best in evaluation), plus
+tensorboard logs under ``logs/``. Because evaluation draws from its own seeded streams, a run
+that is killed and resumed from ``last`` ends with the same bytes as one that never stopped.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import torch
+
+from qadapt.checkpoint import CheckpointMetadata, load_checkpoint, save_checkpoint
+from qadapt.errors import BadInput
+from qadapt.learner.fqi import FittedQLearner
+from qadapt.learner.policy import QPolicy
+from qadapt.maximize import ActionMaximizer
+from qadapt.rollout import EpisodeResults, run_episodes
+
+
+@dataclass(frozen=True)
+class TrainingPlan:
+    """Schedule of a run (all in gradient steps).
+
+    Example:
+        >>> TrainingPlan(steps=1000, eval_every=250).evaluations
+        4
+    """
+
+    steps: int
+    eval_every: int = 0
+    checkpoint_every: int = 1000
+    log_every: int = 100
+    progress_bar: bool = True
+
+    def __post_init__(self) -> None:
+        for name in ("steps", "eval_every", "checkpoint_every", "log_every"):
+            value = getattr(self, name)
+            minimum = 1 if name in ("steps", "log_every") else 0
+            if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+                raise BadInput(f"{name}: got {value!r}, expected an integer >= {minimum}")
+
+    @property
+    def evaluations(self) -> int:
+        return 0 if self.eval_every == 0 else self.steps // self.eval_every
+
+
+class GreedyEvaluator:
+    """Greedy success of a network on ``make_env(episodes)``, one episode per sub-env.
+
+    Every call resets the env with the same ``seed`` and uses a fresh policy stream, so the
+    figures of two networks are paired and evaluation never touches the learner's RNG.
+    """
+
+    def __init__(
+        self,
+        make_env: Callable[[int], Any],
+        maximizer: ActionMaximizer,
+        episodes: int,
+        seed: int,
+        observation_hook: Callable | None = None,
+    ) -> None:
+        if isinstance(episodes, bool) or not isinstance(episodes, int) or episodes < 1:
+            raise BadInput(f"eval episodes: got {episodes!r}, expected a positive integer")
+        self.make_env = make_env
+        self.maximizer = maximizer
+        self.episodes = episodes
+        self.seed = seed
+        self._envs = None
+
+    def __call__(self, network: torch.nn.Module) -> EpisodeResults:
+        if self._envs is None:
+            self._envs = self.make_env(self.episodes)
+        policy = QPolicy(network, self.maximizer, seed=self.seed)
+        return run_episodes(self._envs, policy, seed=self.seed)
+
+
+@dataclass
+class TrainingOutcome:
+    """What a run produced. ``history`` rows: {"step", "successes", "episodes"}."""
+
+    steps: int
+    history: list[dict[str, int]] = field(default_factory=list)
+    best: dict[str, int] | None = None
+    last_path: Path | None = None
+    best_path: Path | None = None
+    resumed_from: int = 0
+    seconds: float = 0.0
+
+    def to_json(self) -> dict[str, Any]:
+        data = dataclasses.asdict(self)
+        data["last_path"] = None if self.last_path is None else str(self.last_path)
+        data["best_path"] = None if self.best_path is None else str(self.best_path)
+        return data
+
+
+def _prefixed(prefix: str, state: dict[str, torch.Tensor]) -> dict[str, torch.Tensor]:
+    return {f"{prefix}.{name}": tensor.detach().contiguous() for name, tensor in state.items()}
+
+
+def unprefixed(weights: dict[str, torch.Tensor], prefix: str) -> dict[str, torch.Tensor]:
+    """The entries of ``weights`` under ``prefix.``, with the prefix removed."""
+    start = len(prefix) + 1
+    return {k[start:]: v for k, v in weights.items() if k.startswith(prefix + ".")}
+
+
+class Trainer:
+    """Runs ``plan.steps`` gradient steps of ``learner`` on batches from ``sampler``.
+
+    Args:
+        learner: the FittedQLearner (critics, optimiser, targets).
+        sampler: an object with ``sample()`` and ``state_dict``/``load_state_dict``.
+        plan: TrainingPlan.
+        run_dir: where checkpoints and logs go.
+        metadata: what every checkpoint records (its gradient step is filled in here).
+        evaluator: optional GreedyEvaluator; the best evaluated weights are kept.
+    """
+
+    def __init__(
+        self,
+        learner: FittedQLearner,
+        sampler: Any,
+        plan: TrainingPlan,
+        run_dir: str | Path,
+        metadata: CheckpointMetadata,
+        evaluator: GreedyEvaluator | None = None,
+    ) -> None:
+        self.learner = learner
+        self.sampler = sampler
+        self.plan = plan
+        self.run_dir = Path(run_dir)
+        self.metadata = metadata
+        self.evaluator = evaluator
+        self.outcome = TrainingOutcome(steps=plan.steps)
+        self.last_path = self.run_dir / "checkpoints" / "last"
+        self.best_path = self.run_dir / "checkpoints" / "best"
+        self._saved_step = -1
+
+    # -- checkpoints -------------------------------------------------------------------
+    def _weights(self) -> dict[str, torch.Tensor]:
+        weights = _prefixed("critics", self.learner.critics.state_dict())
+        weights.update(_prefixed("acting", self.learner.acting_network().state_dict()))
+        return weights
+
+    def _meta(self, **extra: Any) -> CheckpointMetadata:
+        merged = {**self.metadata.extra, **extra}
+        return dataclasses.replace(
+            self.metadata, gradient_step=self.learner.step, extra=merged
+        )
+
+    def _save_last(self) -> None:
+        state = {
+            "learner": self.learner.state_dict(),
+            "sampler": self.sampler.state_dict(),
+            "history": list(self.outcome.history),
+            "best": self.outcome.best,
+        }
+        save_checkpoint(self.last_path, self._weights(), self._meta(kind="training"),
+                        training_state=state, overwrite=True)
+        self.outcome.last_path = self.last_path
+        self._saved_step = self.learner.step
+
+    def _save_best(self, record: dict[str, int]) -> None:
+        acting = _prefixed("acting", self.learner.acting_network().state_dict())
+        save_checkpoint(self.best_path, acting,
+                        self._meta(kind="best", selected_by="greedy evaluation", **record),
+                        overwrite=True)
+        self.outcome.best_path = self.best_path
+
+    def _resume(self) -> None:
+        if not self.last_path.exists():
+            return
+        loaded = load_checkpoint(self.last_path, load_training_state=True)
+        if loaded.metadata.config_digest != self.metadata.config_digest:
+            raise BadInput(
+                f"{self.last_path}: made by a different configuration (digest "
+                f"{loaded.metadata.config_digest[:12]}, this run "
+                f"{self.metadata.config_digest[:12]}); choose another output directory"
+            )
+        state = loaded.training_state
+        self.learner.load_state_dict(state["learner"])
+        self.sampler.load_state_dict(state["sampler"])
+        self.outcome.history = list(state["history"])
+        self.outcome.best = state["best"]
+        self.outcome.resumed_from = self.learner.step
+        self.outcome.last_path = self.last_path
+        self._saved_step = self.learner.step
+        if self.best_path.exists():
+            self.outcome.best_path = self.best_path
+
+    # -- the loop ----------------------------------------------------------------------
+    def _evaluate(self, log) -> None:
+        result = self.evaluator(self.learner.acting_network())
+        record = {"step": self.learner.step, "successes": result.successes,
+                  "episodes": result.episodes}
+        self.outcome.history.append(record)
+        if log is not None:
+            log.add_scalar("eval/success_rate", result.successes / result.episodes,
+                           self.learner.step)
+        best = self.outcome.best
+        if best is None or record["successes"] > best["successes"]:
+            self.outcome.best = record
+            self._save_best(record)
+
+    def run(self) -> TrainingOutcome:
+        """Train to ``plan.steps`` (continuing a killed run from ``checkpoints/last``)."""
+        from torch.utils.tensorboard import SummaryWriter
+        from tqdm import tqdm
+
+        self._resume()
+        start = time.perf_counter()
+        plan = self.plan
+        log = SummaryWriter(str(self.run_dir / "logs"))
+        bar = tqdm(total=plan.steps, initial=self.learner.step, disable=not plan.progress_bar,
+                   desc="gradient steps", dynamic_ncols=True)
+        last_log_time, last_log_step = time.perf_counter(), self.learner.step
+        try:
+            while self.learner.step < plan.steps:
+                metrics = self.learner.update(self.sampler.sample())
+                step = self.learner.step
+                bar.update(1)
+                if step % plan.log_every == 0:
+                    now = time.perf_counter()
+                    values = {k: float(v) for k, v in metrics.items()}
+                    for name, value in values.items():
+                        log.add_scalar(f"train/{name}", value, step)
+                    log.add_scalar("train/steps_per_second",
+                                   (step - last_log_step) / max(now - last_log_time, 1e-9), step)
+                    log.add_scalar("train/refresh_seconds", self.learner.last_refresh_seconds,
+                                   step)
+                    last_log_time, last_log_step = now, step
+                    bar.set_postfix(loss=f"{values['td_loss']:.4f}", q=f"{values['q_mean']:.3f}")
+                if self.evaluator is not None and plan.eval_every and step % plan.eval_every == 0:
+                    self._evaluate(log)
+                if plan.checkpoint_every and step % plan.checkpoint_every == 0:
+                    self._save_last()
+            if self._saved_step != self.learner.step:
+                self._save_last()
+        finally:
+            bar.close()
+            log.close()
+        self.outcome.seconds = time.perf_counter() - start
+        return self.outcome
+
+
+def success_rate(record: dict[str, int] | None) -> float:
+    return math.nan if not record else record["successes"] / record["episodes"]
