@@ -55,7 +55,7 @@ class MixtureSampler:
     them into RAM first. ``memory_limit_bytes=N`` keeps what the sampler holds (blocks, scratch
     and one file window, read with plain reads into a reused buffer) near ``N``; blocks are
     then as large as the limit allows and each block reads the observation files once.
-    ``scripts/bench_data_memory`` measures all three.
+    ``scripts/bench_data_memory`` measures the default and two limits.
 
     Every dataset is verified (checksums and contents) before its first batch, if it was not
     already. ``state_dict()`` records the generator at the start of the current block and the

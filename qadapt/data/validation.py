@@ -5,6 +5,7 @@ Holds:
     as_bool -- a boolean array; BadInput for any other dtype.
     as_int64 -- an integer array as int64; BadInput for any other dtype.
     first_non_finite -- where the first NaN or infinity of an array is, if any.
+    non_finite_problem -- the first NaN or infinity of an array, described (or None).
     check_finite -- BadInput naming the field, row and column of the first NaN or infinity.
     action_bound_problem -- the first action outside its declared space, described.
     check_actions -- BadInput unless every action lies in the declared action space.
@@ -63,6 +64,18 @@ def first_non_finite(array: np.ndarray) -> tuple[int, int | None] | None:
     return row, int(np.argmax(bad[row]))
 
 
+def non_finite_problem(array: np.ndarray, *, first_row: int = 0) -> str | None:
+    """``"has NaN at row r[, column c]"`` for the first NaN/infinity of ``array``, or None."""
+    found = first_non_finite(array)
+    if found is None:
+        return None
+    row, column = found
+    value = array[row] if column is None else array[row, column]
+    kind = "NaN" if np.isnan(value) else "infinity"
+    at = f"row {row + first_row}" + ("" if column is None else f", column {column}")
+    return f"has {kind} at {at}"
+
+
 def check_finite(array: np.ndarray, *, field: str, where: str, first_row: int = 0) -> None:
     """BadInput naming ``field`` and the row of the first NaN or infinity in ``array``.
 
@@ -72,14 +85,9 @@ def check_finite(array: np.ndarray, *, field: str, where: str, first_row: int = 
         ...
         qadapt.errors.BadInput: data.npz: field 'rewards' has NaN at row 1
     """
-    found = first_non_finite(array)
-    if found is None:
-        return
-    row, column = found
-    value = array[row] if column is None else array[row, column]
-    kind = "NaN" if np.isnan(value) else "infinity"
-    at = f"row {row + first_row}" + ("" if column is None else f", column {column}")
-    raise BadInput(f"{where}: field {field!r} has {kind} at {at}")
+    problem = non_finite_problem(array, first_row=first_row)
+    if problem:
+        raise BadInput(f"{where}: field {field!r} {problem}")
 
 
 def action_bound_problem(

@@ -22,7 +22,7 @@ from qadapt.data.episodes import (
 )
 from qadapt.data.manifest import Manifest
 from qadapt.data.npy_files import NpyHeader, scan_blocks
-from qadapt.data.validation import action_bound_problem, first_non_finite
+from qadapt.data.validation import action_bound_problem, non_finite_problem
 from qadapt.errors import BadInput
 
 # Fields kept whole in memory during the pass for the cross-field checks (all 1-D and small:
@@ -43,13 +43,9 @@ _FINITE = ("observations", "actions", "rewards", "next_observations", "episode_r
 
 def _content_problem(name: str, rows: np.ndarray, first: int, manifest: Manifest) -> str | None:
     if name in _FINITE:
-        found = first_non_finite(rows)
-        if found is not None:
-            row, column = found
-            value = rows[row] if column is None else rows[row, column]
-            kind = "NaN" if np.isnan(value) else "infinity"
-            at = f"row {row + first}" + ("" if column is None else f", column {column}")
-            return f"has {kind} at {at}"
+        problem = non_finite_problem(rows, first_row=first)
+        if problem:
+            return problem
     if name == "actions":
         return action_bound_problem(rows, manifest.action_space, first_row=first)
     return None

@@ -35,7 +35,13 @@ from qadapt.data.manifest import (
     manifest_text,
 )
 from qadapt.data.npy_files import NpyStreamWriter
-from qadapt.data.schema import FIELDS, FORMAT_VERSION, MANIFEST_NAME, expected_fields
+from qadapt.data.schema import (
+    FIELDS,
+    FORMAT_VERSION,
+    MANIFEST_NAME,
+    expected_fields,
+    expected_shape,
+)
 from qadapt.data.spaces import SpaceDescription, describe_space
 from qadapt.data.staging import StagingArea, check_output_path
 from qadapt.data.validation import (
@@ -280,14 +286,10 @@ class DatasetWriter:
         obs_dim, act_dim = self.observation_space.width, self.action_space.width
         writers = {}
         for name in names:
-            spec = FIELDS[name]
-            rows = transitions if spec.per == "transition" else episodes
-            shape = (
-                (rows,)
-                if spec.width is None
-                else (rows, obs_dim if spec.width == "obs_dim" else act_dim)
+            shape = expected_shape(
+                name, transitions=transitions, episodes=episodes, obs_dim=obs_dim, act_dim=act_dim
             )
-            writers[name] = NpyStreamWriter(assembled / f"{name}.npy", spec.dtype, shape)
+            writers[name] = NpyStreamWriter(assembled / f"{name}.npy", FIELDS[name].dtype, shape)
         first_episode = 0
         try:
             for chunk in chunks:
