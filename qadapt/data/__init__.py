@@ -3,7 +3,7 @@
 Holds (each from its own module):
     open_dataset, ReplayDataset -- read a dataset (memory-mapped, verified) [dataset]
     DatasetWriter -- stream episodes into a new dataset, atomically published [writer]
-    collect, CollectionSummary -- run a policy in a gymnasium vector env into a dataset [collect]
+    collect, CollectionSummary -- run a policy in a gymnasium vector env into a dataset [collection]
     Policy, UniformRandomPolicy -- what collect needs from a policy; a random one [policy]
     import_arrays -- build a dataset from a user's .npz / .npy arrays [importing]
     split_dataset -- split a dataset by episode into train and held-out parts [split]
@@ -27,8 +27,8 @@ from typing import Any
 # for importing torch, which only the sampler needs.
 _HOMES = {
     "ReplayBatch": "batch",
-    "CollectionSummary": "collect",
-    "collect": "collect",
+    "CollectionSummary": "collection",
+    "collect": "collection",
     "ReplayDataset": "dataset",
     "open_dataset": "dataset",
     "import_arrays": "importing",
