@@ -20,6 +20,14 @@ JOBS: dict[str, tuple[str, str]] = {
         "run the scripted picker in the pick cell and under each variation; print success rates",
         "qadapt.preview:main",
     ),
+    "collect": (
+        "run a policy (scripted, random or a checkpoint) in an environment; write a dataset",
+        "qadapt.jobs.collect:main",
+    ),
+    "import": (
+        "build a dataset from your own .npz / .npy arrays",
+        "qadapt.jobs.import_job:main",
+    ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
         "qadapt.data.inspection:main",

@@ -75,6 +75,10 @@ class ScriptedPicker:
             "seed": self.seed,
         }
 
+    def reseed(self, seed: int) -> None:
+        """Restart the noise stream from ``seed`` (collectors call this per chunk)."""
+        self._rng = np.random.default_rng(seed)
+
     def state_dict(self) -> dict[str, Any]:
         return {"rng": self._rng.bit_generator.state}
 

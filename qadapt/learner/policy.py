@@ -81,6 +81,10 @@ class QPolicy:
             actions = torch.where(swap[:, None], uniform, actions)
         return torch.clamp(actions, self._low, self._high).numpy()
 
+    def reseed(self, seed: int) -> None:
+        """Restart the policy's random stream from ``seed`` (collectors call this per chunk)."""
+        self.generator = torch.Generator().manual_seed(int(seed))
+
     def state_dict(self) -> dict:
         return {"generator": self.generator.get_state()}
 

@@ -1,0 +1,121 @@
+"""Running a job through Hydra, with bad input reported in one line and exit status 2.
+
+Holds:
+    CONFIG_DIR -- the configs/ folder (config groups as folders, one primary file per job).
+    run_job -- compose a job's config from command-line overrides, validate it, run it.
+
+Hydra keeps its own features (``--multirun``, ``--cfg job``, ``--help``,
+``hydra.run.dir=...``). Before handing over, a plain run's overrides are composed once with
+Hydra's compose API, so an unknown group option, a wrong type or a failed check stops the job
+before any work with one line naming the key, instead of Hydra's multi-line report.
+"""
+
+from __future__ import annotations
+
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+
+from qadapt.errors import BadInput
+
+CONFIG_DIR = Path(__file__).resolve().parents[2] / "configs"
+HYDRA_FLAGS_WITH_VALUE = {"--cfg", "-c", "--package", "-p", "--config-name", "-cn",
+                          "--config-path", "-cp", "--config-dir", "-cd", "--info", "-i"}
+
+
+def _first_line(err: BaseException, with_cause: bool = True) -> str:
+    """One line from Hydra's and OmegaConf's multi-line errors: the message, the key, the
+    cause and, for an unknown group option, the options there are."""
+    text = str(err).strip() or type(err).__name__
+    lines = [line.strip() for line in text.splitlines() if line.strip()]
+    message = lines[0]
+    key = next((line for line in lines if line.startswith("full_key:")), None)
+    if key and "full_key" not in message:
+        message = f"{key.split(',')[0].removeprefix('full_key: ')}: {message}"
+    if "Available options in" in text:
+        raw = text.split("Available options in", 1)[1].split("Config search path", 1)[0]
+        options = [o.strip() for o in raw.splitlines()[1:] if o.strip()]
+        options = [o for o in options if not o.endswith("_schema")]
+        message += f"; available: {', '.join(options)}"
+    cause = err.__cause__ or err.__context__
+    if with_cause and cause is not None and str(cause).strip():
+        detail = _first_line(cause, with_cause=False)
+        if detail not in message:
+            message += f" ({detail})"
+    return message
+
+
+def fail(job: str, err: BaseException) -> None:
+    """Print ``qadapt JOB: message`` on one line and exit with status 2."""
+    print(f"qadapt {job}: {_first_line(err)}", file=sys.stderr)
+    raise SystemExit(2)
+
+
+def _plain_overrides(argv: Sequence[str]) -> list[str] | None:
+    """Overrides of a single run, or None when Hydra must see the arguments itself."""
+    out: list[str] = []
+    skip = False
+    for arg in argv:
+        if skip:
+            skip = False
+            continue
+        if arg in ("--multirun", "-m", "--help", "-h", "--hydra-help", "--version",
+                   "--shell-completion", "-sc"):
+            return None
+        if arg in HYDRA_FLAGS_WITH_VALUE:
+            skip = True
+            continue
+        if arg.startswith("-"):
+            continue
+        out.append(arg)
+    return out
+
+
+def check_config(job: str, overrides: list[str], schema: type) -> None:
+    """Compose the job's config with Hydra's compose API and build the typed object."""
+    from hydra import compose, initialize_config_dir
+    from hydra.core.global_hydra import GlobalHydra
+
+    from qadapt.config.schema import to_typed
+
+    GlobalHydra.instance().clear()
+    try:
+        with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
+            cfg = compose(config_name=job, overrides=overrides)
+        to_typed(cfg, schema)
+    except BadInput as err:
+        fail(job, err)
+    except Exception as err:  # Hydra's and OmegaConf's composition errors
+        fail(job, err)
+    finally:
+        GlobalHydra.instance().clear()
+
+
+def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
+    """Run ``task(typed_config)`` for ``qadapt JOB argv...`` under Hydra; return exit status."""
+    import hydra
+
+    from qadapt.config.schema import register_schemas, to_typed
+
+    register_schemas()
+    overrides = _plain_overrides(argv)
+    if overrides is not None:
+        check_config(job, overrides, schema)
+
+    status = {"code": 0}
+
+    @hydra.main(config_path=str(CONFIG_DIR), config_name=job, version_base="1.3")
+    def _entry(cfg) -> None:
+        try:
+            typed = to_typed(cfg, schema)
+            status["code"] = int(task(typed) or 0)
+        except BadInput as err:
+            fail(job, err)
+
+    saved = sys.argv
+    sys.argv = [f"qadapt {job}", *argv]
+    try:
+        _entry()
+    finally:
+        sys.argv = saved
+    return status["code"]

@@ -1,0 +1,169 @@
+"""Dataclass schemas for qadapt's config groups and jobs, registered in Hydra's ConfigStore.
+
+Holds:
+    EnvConfig -- which gymnasium environment (id and keyword arguments).
+    VariationConfig -- what is perturbed: pick-cell families, generic wrappers, reveal.
+    PolicyConfig -- what acts while collecting: scripted, random, or a checkpoint.
+    CollectJob, ImportJob -- the job schemas so far.
+    register_schemas -- put every schema into Hydra's ConfigStore.
+    to_typed -- turn a composed DictConfig into its dataclass, running every check.
+
+YAML files under configs/ choose values; the code receives these typed objects, never raw
+dicts. Checks that OmegaConf cannot express (ranges, exclusive options, paths) run in
+``__post_init__`` when ``to_typed`` builds the object, before any work starts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from omegaconf import DictConfig, OmegaConf
+
+from qadapt.errors import BadInput
+
+PICK_CELL = "demo_envs/PickCell-v0"
+
+
+def _positive_int(key: str, value: object, allow_none: bool = False) -> None:
+    if value is None and allow_none:
+        return
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise BadInput(f"{key}: got {value!r}, expected a positive integer")
+
+
+def _non_negative_int(key: str, value: object) -> None:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+        raise BadInput(f"{key}: got {value!r}, expected a non-negative integer")
+
+
+@dataclass
+class EnvConfig:
+    """A gymnasium environment: ``id`` plus constructor ``kwargs``."""
+
+    id: str = PICK_CELL
+    kwargs: dict[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.id, str) or not self.id:
+            raise BadInput(f"env.id: got {self.id!r}, expected a gymnasium environment id")
+
+
+@dataclass
+class VariationConfig:
+    """A variation of the environment.
+
+    ``perturbations`` are pick-cell families with magnitudes (docs/pick_cell.md);
+    ``wrappers`` are generic perturbation wrappers for any Box-space env
+    (``qadapt.wrappers.apply_perturbations``); ``reveal`` shows what a sensor could see.
+    """
+
+    name: str = "none"
+    perturbations: dict[str, float] = field(default_factory=dict)
+    wrappers: dict[str, dict[str, Any]] = field(default_factory=dict)
+    reveal: bool = False
+
+
+@dataclass
+class PolicyConfig:
+    """What acts during collection.
+
+    kind: "scripted" (the pick cell's scripted picker), "random" (uniform over the action
+    space) or "checkpoint" (a Q-function's greedy CEM policy; ``checkpoint`` is its path).
+    noise: scripted picker's Gaussian action noise, or the checkpoint policy's Gaussian
+    exploration (fraction of the half-range). random_rate: share of uniform random actions.
+    """
+
+    kind: str = "scripted"
+    noise: float = 0.15
+    random_rate: float = 0.0
+    checkpoint: str | None = None
+
+    def __post_init__(self) -> None:
+        kinds = ("scripted", "random", "checkpoint")
+        if self.kind not in kinds:
+            raise BadInput(f"policy.kind: got {self.kind!r}, expected one of {', '.join(kinds)}")
+        if not 0.0 <= self.noise <= 2.0:
+            raise BadInput(f"policy.noise: got {self.noise!r}, expected a number in [0, 2]")
+        if not 0.0 <= self.random_rate <= 1.0:
+            raise BadInput(
+                f"policy.random_rate: got {self.random_rate!r}, expected a number in [0, 1]"
+            )
+        if self.kind == "checkpoint":
+            if not self.checkpoint:
+                raise BadInput("policy.checkpoint: a checkpoint policy needs a checkpoint path")
+            if not Path(self.checkpoint).exists():
+                raise BadInput(f"policy.checkpoint: {self.checkpoint} does not exist")
+
+
+@dataclass
+class CollectJob:
+    """``qadapt collect``: run a policy in an environment and write a dataset."""
+
+    env: EnvConfig = field(default_factory=EnvConfig)
+    variation: VariationConfig = field(default_factory=VariationConfig)
+    policy: PolicyConfig = field(default_factory=PolicyConfig)
+    episodes: int | None = 200
+    transitions: int | None = None
+    seed: int = 0
+    out: str | None = None
+    num_envs: int = 256
+    overwrite: bool = False
+    progress: bool = True
+
+    def __post_init__(self) -> None:
+        if self.transitions is not None:
+            _positive_int("transitions", self.transitions)
+            if self.episodes is not None:
+                raise BadInput(
+                    "episodes and transitions: give one of them (set episodes=null to count "
+                    "transitions)"
+                )
+        else:
+            _positive_int("episodes", self.episodes)
+        _non_negative_int("seed", self.seed)
+        _positive_int("num_envs", self.num_envs)
+
+
+@dataclass
+class ImportJob:
+    """``qadapt import``: build a dataset from a user's own ``.npz`` or ``.npy`` arrays."""
+
+    source: str = "???"
+    out: str | None = None
+    fields: dict[str, str] = field(default_factory=dict)
+    env: EnvConfig = field(default_factory=EnvConfig)
+    variation: VariationConfig = field(default_factory=VariationConfig)
+    seed: int | None = None
+    overwrite: bool = False
+
+    def __post_init__(self) -> None:
+        if not Path(self.source).exists():
+            raise BadInput(f"source: {self.source} does not exist")
+
+
+SCHEMAS: dict[str, tuple[str | None, type]] = {
+    "collect_schema": (None, CollectJob),
+    "import_schema": (None, ImportJob),
+    "env_schema": ("env", EnvConfig),
+    "variation_schema": ("variation", VariationConfig),
+    "policy_schema": ("policy", PolicyConfig),
+}
+
+
+def register_schemas() -> None:
+    """Store every schema in Hydra's ConfigStore (idempotent)."""
+    from hydra.core.config_store import ConfigStore
+
+    store = ConfigStore.instance()
+    for name, (group, node) in SCHEMAS.items():
+        store.store(name=name, node=node, group=group)
+
+
+def to_typed(cfg: DictConfig, schema: type) -> Any:
+    """The dataclass instance for a composed config (runs every ``__post_init__`` check)."""
+    plain = OmegaConf.to_container(cfg, resolve=True, throw_on_missing=True)
+    plain.pop("hydra", None)
+    merged = OmegaConf.merge(OmegaConf.structured(schema), plain)
+    return OmegaConf.to_object(merged)

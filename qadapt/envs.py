@@ -1,0 +1,62 @@
+"""Building the environments jobs run in, from typed configs, and recording how they were built.
+
+Holds:
+    make_vector_env -- a gymnasium vector env for an EnvConfig and a VariationConfig.
+    env_record -- {"id", "kwargs", "wrappers"}: what a dataset or checkpoint records.
+
+The pick cell (and any env registered with a batched ``vector_entry_point``) is built with
+``gymnasium.make_vec``'s batched implementation; other ids with gymnasium's SyncVectorEnv,
+each sub-env wrapped with the variation's generic perturbation wrappers.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import gymnasium as gym
+
+import demo_envs
+from qadapt.config.schema import EnvConfig, VariationConfig
+from qadapt.errors import BadInput
+from qadapt.wrappers import apply_perturbations
+
+
+def _kwargs(env: EnvConfig, variation: VariationConfig) -> dict[str, Any]:
+    kwargs = dict(env.kwargs)
+    if env.id == demo_envs.PICK_CELL_ID:
+        if variation.perturbations:
+            kwargs["perturbations"] = dict(variation.perturbations)
+        if variation.reveal:
+            kwargs["reveal"] = True
+    elif variation.perturbations or variation.reveal:
+        raise BadInput(
+            f"variation {variation.name!r}: pick-cell perturbations and reveal apply only to "
+            f"{demo_envs.PICK_CELL_ID}, not {env.id}; use variation.wrappers for other envs"
+        )
+    return kwargs
+
+
+def env_record(env: EnvConfig, variation: VariationConfig) -> dict[str, Any]:
+    """How to rebuild the env: gymnasium id, constructor kwargs, generic wrappers in order."""
+    wrappers = [{"name": name, "kwargs": dict(kw)} for name, kw in variation.wrappers.items()]
+    return {"id": env.id, "kwargs": _kwargs(env, variation), "wrappers": wrappers}
+
+
+def make_vector_env(env: EnvConfig, variation: VariationConfig, num_envs: int):
+    """A vector env of ``num_envs`` sub-envs (next-step autoreset)."""
+    kwargs = _kwargs(env, variation)
+    try:
+        spec = gym.spec(env.id)
+    except gym.error.Error as err:
+        raise BadInput(f"env.id: {env.id!r} is not a registered gymnasium environment") from err
+    try:
+        if spec.vector_entry_point is not None and not variation.wrappers:
+            return gym.make_vec(env.id, num_envs=num_envs, **kwargs)
+        wrappers = [lambda e: apply_perturbations(e, variation.wrappers)] if (
+            variation.wrappers) else None
+        return gym.make_vec(env.id, num_envs=num_envs, vectorization_mode="sync",
+                            wrappers=wrappers, **kwargs)
+    except (TypeError, ValueError) as err:
+        if isinstance(err, BadInput):
+            raise
+        raise BadInput(f"env {env.id}: {err}") from err

@@ -1,0 +1,58 @@
+"""Loading a trained Q-network from a checkpoint, and acting with it.
+
+Holds:
+    load_q_network -- the acting network of a checkpoint, checked against expected spaces.
+    checkpoint_policy -- a QPolicy over a checkpoint's network, for evaluation or collection.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import gymnasium as gym
+import torch
+
+from qadapt.checkpoint import load_checkpoint
+from qadapt.errors import BadInput
+from qadapt.learner.policy import QPolicy
+from qadapt.maximize import CrossEntropyMaximizer
+from qadapt.nets import QNetworkConfig, build_q_network
+
+DEFAULT_POLICY_MAXIMIZER = {"samples": 64, "elites": 6, "iterations": 2}
+
+
+def load_q_network(path: str | Path, observation_space=None, action_space=None,
+                   what: str = "environment"):
+    """(network, loaded checkpoint): the checkpoint's acting network in eval mode."""
+    loaded = load_checkpoint(path, expect_observation_space=observation_space,
+                             expect_action_space=action_space, what=what)
+    meta = loaded.metadata
+    acting = {k[len("acting."):]: v for k, v in loaded.weights.items() if k.startswith("acting.")}
+    if not acting:
+        raise BadInput(f"{path}: holds no acting network weights")
+    space = meta.action_space
+    low = torch.as_tensor(space.low, dtype=torch.float32)
+    high = torch.as_tensor(space.high, dtype=torch.float32)
+    network = build_q_network(int(meta.observation_space.shape[0]), low, high,
+                              QNetworkConfig.from_dict(meta.network["q_network"]))
+    try:
+        network.load_state_dict(acting)
+    except RuntimeError as err:
+        raise BadInput(f"{path}: weights do not fit the recorded network: "
+                       f"{str(err).splitlines()[0]}") from err
+    network.requires_grad_(False).eval()
+    return network, loaded
+
+
+def checkpoint_policy(path, env, seed: int, gaussian_std: float = 0.0, epsilon: float = 0.0,
+                      maximizer_settings: dict | None = None) -> QPolicy:
+    """A QPolicy over the checkpoint at ``path``, refusing one trained for other spaces."""
+    network, loaded = load_q_network(path, env.single_observation_space,
+                                     env.single_action_space)
+    space = env.single_action_space
+    if not isinstance(space, gym.spaces.Box):
+        raise BadInput(f"{path}: acting with CEM needs a Box action space, the env has {space}")
+    settings = {**DEFAULT_POLICY_MAXIMIZER, **(maximizer_settings or {})}
+    maximizer = CrossEntropyMaximizer(space.low, space.high, **settings)
+    return QPolicy(network, maximizer, seed=seed, gaussian_std=gaussian_std, epsilon=epsilon,
+                   provenance={"checkpoint": str(path), "checkpoint_sha256": loaded.identity})
