@@ -28,6 +28,14 @@ JOBS: dict[str, tuple[str, str]] = {
         "build a dataset from your own .npz / .npy arrays",
         "qadapt.jobs.import_job:main",
     ),
+    "split": (
+        "divide a dataset by episode into a training part and a held-out part",
+        "qadapt.jobs.split_job:main",
+    ),
+    "pretrain": (
+        "train a Q-function from one or more datasets; write a checkpoint",
+        "qadapt.jobs.pretrain:main",
+    ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
         "qadapt.data.inspection:main",

@@ -113,7 +113,8 @@ def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
             fail(job, err)
 
     saved = sys.argv
-    sys.argv = [f"qadapt {job}", *argv]
+    # Without a name Hydra calls every job after this module (help title, log file name).
+    sys.argv = [f"qadapt {job}", f"hydra.job.name={job}", *argv]
     try:
         _entry()
     finally:

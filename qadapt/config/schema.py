@@ -15,6 +15,7 @@ dicts. Checks that OmegaConf cannot express (ranges, exclusive options, paths) r
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -143,9 +144,45 @@ class ImportJob:
             raise BadInput(f"source: {self.source} does not exist")
 
 
+@dataclass
+class SplitJob:
+    """``qadapt split``: divide a dataset by episode into a training and a held-out part.
+
+    ``out_train`` / ``out_held_out`` default to ``<source>_train`` / ``<source>_held_out``
+    beside the source (filled in here, so the job always gets both paths).
+    """
+
+    source: str = "???"
+    held_out_fraction: float = 0.1
+    seed: int = 0
+    out_train: str | None = None
+    out_held_out: str | None = None
+    overwrite: bool = False
+
+    def __post_init__(self) -> None:
+        if not Path(self.source).is_dir():
+            what = "is not a directory" if Path(self.source).exists() else "does not exist"
+            raise BadInput(f"source: {self.source} {what}; expected a dataset directory")
+        fraction = self.held_out_fraction
+        # `not 0 < x < 1` also refuses NaN, which fails every comparison.
+        if isinstance(fraction, bool) or not 0.0 < fraction < 1.0:
+            raise BadInput(
+                f"held_out_fraction: got {fraction!r}, expected a number between 0 and 1 "
+                "(exclusive)"
+            )
+        _non_negative_int("seed", self.seed)
+        # abspath first so "data/run/" and "." still give a sibling name, never "run/_train".
+        stem = os.path.abspath(self.source)
+        if not self.out_train:
+            self.out_train = f"{stem}_train"
+        if not self.out_held_out:
+            self.out_held_out = f"{stem}_held_out"
+
+
 SCHEMAS: dict[str, tuple[str | None, type]] = {
     "collect_schema": (None, CollectJob),
     "import_schema": (None, ImportJob),
+    "split_schema": (None, SplitJob),
     "env_schema": ("env", EnvConfig),
     "variation_schema": ("variation", VariationConfig),
     "policy_schema": ("policy", PolicyConfig),

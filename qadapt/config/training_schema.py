@@ -1,0 +1,146 @@
+"""Dataclass schemas of the training jobs: network, maximiser, learner, evaluation, pretrain.
+
+Holds:
+    NetworkSettings -- a Q-network's form and widths (-> nets.QNetworkConfig).
+    MaximizerSettings -- the CEM settings used for targets and for acting.
+    LearnerSettings -- every learner.LearnerConfig field, as an editable config node.
+    EvalSettings -- in-training evaluation: env, variation, episodes, how often.
+    PretrainJob -- ``qadapt pretrain``: train a Q-function from one or more datasets.
+    register_training_schemas -- put them into Hydra's ConfigStore.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from qadapt.config.schema import EnvConfig, VariationConfig
+from qadapt.errors import BadInput
+from qadapt.learner.config import LearnerConfig
+from qadapt.nets import QNetworkConfig
+
+
+@dataclass
+class NetworkSettings:
+    form: str = "late_fusion"
+    torso: list[int] = field(default_factory=lambda: [256, 256])
+    head: list[int] = field(default_factory=lambda: [64])
+    output: str = "sigmoid"
+    initial_value: float = 0.1
+    layer_norm: bool = False
+
+    def build(self) -> QNetworkConfig:
+        try:
+            return QNetworkConfig(form=self.form, torso=tuple(self.torso), head=tuple(self.head),
+                                  output=self.output, initial_value=self.initial_value,
+                                  layer_norm=self.layer_norm)
+        except ValueError as err:
+            raise BadInput(f"network.{err}") from err
+
+
+@dataclass
+class MaximizerSettings:
+    samples: int = 64
+    elites: int = 6
+    iterations: int = 2
+    initial_std: float = 0.5
+    warm_std: float = 0.2
+    min_std: float = 0.02
+
+    def as_kwargs(self) -> dict[str, Any]:
+        return dataclasses.asdict(self)
+
+
+def _learner_fields() -> list[tuple[str, Any, Any]]:
+    hints = typing.get_type_hints(LearnerConfig)
+    return [(f.name, hints[f.name], field(default=f.default))
+            for f in dataclasses.fields(LearnerConfig)]
+
+
+# Every LearnerConfig field, editable (LearnerConfig itself is frozen); checked by build().
+LearnerSettings = dataclasses.make_dataclass("LearnerSettings", _learner_fields())
+
+
+def build_learner_config(settings: Any) -> LearnerConfig:
+    try:
+        return LearnerConfig(**dataclasses.asdict(settings))
+    except ValueError as err:
+        raise BadInput(f"learner.{err}") from err
+
+
+@dataclass
+class EvalSettings:
+    """Periodic greedy evaluation during training (every ``every`` steps; 0 = off)."""
+
+    env: EnvConfig = field(default_factory=EnvConfig)
+    variation: VariationConfig = field(default_factory=VariationConfig)
+    episodes: int = 200
+    every: int = 500
+    seed: int = 12345
+
+    def __post_init__(self) -> None:
+        if isinstance(self.episodes, bool) or self.episodes < 1:
+            raise BadInput(f"eval.episodes: got {self.episodes!r}, expected a positive integer")
+        if self.every < 0:
+            raise BadInput(f"eval.every: got {self.every!r}, expected an integer >= 0")
+
+
+def _paths(key: str, value: Any) -> list[str]:
+    paths = [value] if isinstance(value, str) else list(value or [])
+    if not paths:
+        raise BadInput(f"{key}: give a dataset path (or a list of them)")
+    for path in paths:
+        if not Path(path).exists():
+            raise BadInput(f"{key}: {path} does not exist")
+    return [str(p) for p in paths]
+
+
+@dataclass
+class PretrainJob:
+    """``qadapt pretrain``: train a Q-function from one or more datasets."""
+
+    data: Any = "???"
+    shares: Any = None
+    steps: int = 5000
+    seed: int = 0
+    out: str | None = None
+    checkpoint_every: int = 1000
+    log_every: int = 100
+    memory_limit_mb: int | None = None
+    threads: int = 1
+    progress: bool = True
+    network: NetworkSettings = field(default_factory=NetworkSettings)
+    maximizer: MaximizerSettings = field(default_factory=MaximizerSettings)
+    learner: LearnerSettings = field(default_factory=LearnerSettings)
+    eval: EvalSettings = field(default_factory=EvalSettings)
+
+    def __post_init__(self) -> None:
+        self.data = _paths("data", self.data)
+        if self.steps < 1:
+            raise BadInput(f"steps: got {self.steps!r}, expected a positive integer")
+        if self.seed < 0:
+            raise BadInput(f"seed: got {self.seed!r}, expected a non-negative integer")
+        if self.threads < 1:
+            raise BadInput(f"threads: got {self.threads!r}, expected a positive integer")
+        if self.shares is not None:
+            self.shares = [float(s) for s in self.shares]
+
+
+TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
+    "pretrain_schema": (None, PretrainJob),
+    "network_schema": ("network", NetworkSettings),
+    "maximizer_schema": ("maximizer", MaximizerSettings),
+    "learner_schema": ("learner", LearnerSettings),
+    "eval_schema": ("eval", EvalSettings),
+}
+
+
+def register_training_schemas() -> None:
+    from hydra.core.config_store import ConfigStore
+
+    store = ConfigStore.instance()
+    for name, (group, node) in TRAINING_SCHEMAS.items():
+        store.store(name=name, node=node, group=group)
