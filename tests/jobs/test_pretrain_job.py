@@ -1,0 +1,105 @@
+"""``qadapt pretrain`` end to end: reproducible bytes, exact resume after SIGKILL, bad input."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import gymnasium as gym
+import pytest
+
+import demo_envs
+from demo_envs.pick_cell import ScriptedPicker
+from qadapt.data import collect
+
+CHECKPOINT_FILES = ("weights.safetensors", "checkpoint.json", "training_state.safetensors")
+
+
+@pytest.fixture(scope="module")
+def prior(tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("data") / "prior"
+    envs = gym.make_vec(demo_envs.PICK_CELL_ID, num_envs=32)
+    collect(envs, ScriptedPicker(noise=0.15, seed=0), episodes=64, out=out, seed=0,
+            env_record={"id": demo_envs.PICK_CELL_ID, "kwargs": {}, "wrappers": []},
+            progress=False)
+    return out
+
+
+def _args(prior: Path, out: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "qadapt.cli", "pretrain", f"data={prior}", "steps=60",
+            f"out={out}", "eval.every=30", "eval.episodes=8", "checkpoint_every=20",
+            "progress=false", "learner.refresh_every=25", f"hydra.run.dir={out}_hydra", *extra]
+
+
+def _digests(run: Path) -> dict[str, str]:
+    return {p.relative_to(run).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted((run / "checkpoints").rglob("*")) if p.is_file()}
+
+
+def _run(args, cwd) -> subprocess.CompletedProcess:
+    return subprocess.run(args, capture_output=True, text=True, cwd=cwd)
+
+
+def test_same_config_and_seed_give_identical_checkpoint_bytes(prior, tmp_path):
+    a, b = tmp_path / "a", tmp_path / "b"
+    for out in (a, b):
+        done = _run(_args(prior, out), tmp_path)
+        assert done.returncode == 0, done.stderr
+        assert f"outputs written to {out}" in done.stdout
+    assert _digests(a) == _digests(b)
+    assert {"checkpoints/last/weights.safetensors", "checkpoints/best/weights.safetensors"} <= set(
+        _digests(a))
+    assert (a / "summary.json").exists() and (a / "lineage.json").exists()
+
+
+def test_killed_run_resumes_to_the_same_bytes(prior, tmp_path):
+    straight, killed = tmp_path / "straight", tmp_path / "killed"
+    assert _run(_args(prior, straight), tmp_path).returncode == 0
+    proc = subprocess.Popen(_args(prior, killed), cwd=tmp_path, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+    marker = killed / "checkpoints" / "last" / "checkpoint.json"
+    deadline = time.monotonic() + 120
+    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    resumed = _run(_args(prior, killed), tmp_path)
+    assert resumed.returncode == 0, resumed.stderr
+    assert _digests(killed) == _digests(straight)
+
+
+@pytest.mark.parametrize(
+    ("extra", "words"),
+    [
+        (["data=/no/such/dataset"], ["data", "/no/such/dataset"]),
+        (["learner.learning_rate=-1"], ["learning_rate", "-1"]),
+        (["network.form=wide"], ["form", "wide"]),
+        (["learner=nonsense"], ["learner", "nonsense"]),
+        (["+eval.env.kwargs={max_items: 3}"], ["(51,)", "(61,)"]),
+    ],
+)
+def test_bad_input_exits_2_with_one_line(prior, tmp_path, extra, words):
+    args = _args(prior, tmp_path / "run")
+    args = [a for a in args if not any(a.startswith(e.split("=")[0] + "=") for e in extra)]
+    done = _run([*args, *extra], tmp_path)
+    assert done.returncode == 2, done.stderr
+    lines = done.stderr.strip().splitlines()
+    assert len(lines) == 1, done.stderr
+    for word in words:
+        assert word in lines[0]
+    assert not (tmp_path / "run" / "checkpoints").exists()
+
+
+def test_rerun_with_another_config_refuses_and_keeps_the_checkpoint(prior, tmp_path):
+    out = tmp_path / "run"
+    assert _run(_args(prior, out), tmp_path).returncode == 0
+    before = _digests(out)
+    done = _run(_args(prior, out, "learner.learning_rate=0.001"), tmp_path)
+    assert done.returncode == 2
+    assert "different configuration" in done.stderr
+    assert _digests(out) == before
