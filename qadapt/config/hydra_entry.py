@@ -59,8 +59,10 @@ def _plain_overrides(argv: Sequence[str]) -> list[str] | None:
         if skip:
             skip = False
             continue
+        # --cfg/--info only show the config: one still missing mandatory values (``???``)
+        # must show, not be refused.
         if arg in ("--multirun", "-m", "--help", "-h", "--hydra-help", "--version",
-                   "--shell-completion", "-sc"):
+                   "--shell-completion", "-sc", "--cfg", "-c", "--info", "-i"):
             return None
         if arg in HYDRA_FLAGS_WITH_VALUE:
             skip = True
@@ -104,17 +106,20 @@ def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
 
     status = {"code": 0}
 
-    @hydra.main(config_path=str(CONFIG_DIR), config_name=job, version_base="1.3")
-    def _entry(cfg) -> None:
+    def _body(cfg) -> None:
         try:
             typed = to_typed(cfg, schema)
             status["code"] = int(task(typed) or 0)
         except BadInput as err:
             fail(job, err)
 
+    # Hydra names the job (help title, log file) after the last part of the task function's
+    # module; without this every job would be called "hydra_entry".
+    _body.__module__ = f"qadapt.{job}"
+    _entry = hydra.main(config_path=str(CONFIG_DIR), config_name=job, version_base="1.3")(_body)
+
     saved = sys.argv
-    # Without a name Hydra calls every job after this module (help title, log file name).
-    sys.argv = [f"qadapt {job}", f"hydra.job.name={job}", *argv]
+    sys.argv = [f"qadapt {job}", *argv]
     try:
         _entry()
     finally:

@@ -62,7 +62,8 @@ def collect_job(cfg: CollectJob) -> int:
         seed=cfg.seed, env_record=env_record(cfg.env, cfg.variation),
         progress=cfg.progress, overwrite=cfg.overwrite,
     )
-    print(summary.text())
+    if not cfg.progress:  # with the progress bar on, collect() prints the summary itself
+        print(summary.text())
     print(f"dataset written to {out}")
     return 0
 
