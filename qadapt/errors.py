@@ -2,6 +2,7 @@
 
 Holds:
     BadInput -- the user gave something unusable (a file, a config value, an argument).
+    TrainingFailed -- training stopped itself (e.g. diverged); reported in one line, exit 3.
 """
 
 from __future__ import annotations
@@ -16,4 +17,11 @@ class BadInput(ValueError):
         ... except ValueError as err:
         ...     print(err)
         data.steps: got -5, expected a positive integer
+    """
+
+
+class TrainingFailed(RuntimeError):
+    """Training stopped itself (a divergence guard fired); earlier checkpoints stay as they were.
+
+    The command line prints the message in one line and exits with status 3.
     """

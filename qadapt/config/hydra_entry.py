@@ -16,7 +16,7 @@ import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-from qadapt.errors import BadInput
+from qadapt.errors import BadInput, TrainingFailed
 
 CONFIG_DIR = Path(__file__).resolve().parents[2] / "configs"
 HYDRA_FLAGS_WITH_VALUE = {"--cfg", "-c", "--package", "-p", "--config-name", "-cn",
@@ -112,6 +112,9 @@ def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
             status["code"] = int(task(typed) or 0)
         except BadInput as err:
             fail(job, err)
+        except TrainingFailed as err:
+            print(f"qadapt {job}: {_first_line(err, with_cause=False)}", file=sys.stderr)
+            raise SystemExit(3) from None
 
     # Hydra names the job (help title, log file) after the last part of the task function's
     # module; without this every job would be called "hydra_entry".

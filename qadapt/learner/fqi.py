@@ -19,6 +19,7 @@ from typing import Protocol
 import torch
 from torch import nn
 
+from qadapt.errors import TrainingFailed
 from qadapt.learner.config import LearnerConfig
 from qadapt.learner.losses import anchor_penalty, conservative_penalty, td_loss
 from qadapt.learner.targets import TargetCache, TransitionArrays, bootstrap_values, td_targets
@@ -26,12 +27,13 @@ from qadapt.maximize import ActionMaximizer
 from qadapt.nets import CriticPair
 
 
-class TrainingDiverged(RuntimeError):
+class TrainingDiverged(TrainingFailed):
     """Training stopped: a non-finite loss or a Q-value beyond the configured limit."""
 
     def __init__(self, step: int, reason: str) -> None:
         super().__init__(f"training diverged at gradient step {step}: {reason}")
         self.step = step
+        self.reason = reason
 
 
 class Batch(Protocol):

@@ -27,7 +27,7 @@ import torch
 
 from qadapt.checkpoint import CheckpointMetadata, load_checkpoint, save_checkpoint
 from qadapt.errors import BadInput
-from qadapt.learner.fqi import FittedQLearner
+from qadapt.learner.fqi import FittedQLearner, TrainingDiverged
 from qadapt.learner.policy import QPolicy
 from qadapt.maximize import ActionMaximizer
 from qadapt.rollout import EpisodeResults, run_episodes
@@ -231,7 +231,13 @@ class Trainer:
         last_log_time, last_log_step = time.perf_counter(), self.learner.step
         try:
             while self.learner.step < plan.steps:
-                metrics = self.learner.update(self.sampler.sample())
+                try:
+                    metrics = self.learner.update(self.sampler.sample())
+                except TrainingDiverged as err:
+                    kept = (f"; the last checkpoint ({self._saved_step} steps) is kept at "
+                            f"{self.last_path}" if self._saved_step >= 0 else
+                            "; no checkpoint was written")
+                    raise TrainingDiverged(err.step, f"{err.reason}{kept}") from None
                 step = self.learner.step
                 bar.update(1)
                 if step % plan.log_every == 0:
