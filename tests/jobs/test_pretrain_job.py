@@ -103,3 +103,26 @@ def test_rerun_with_another_config_refuses_and_keeps_the_checkpoint(prior, tmp_p
     assert done.returncode == 2
     assert "different configuration" in done.stderr
     assert _digests(out) == before
+
+
+def test_a_checkpoint_policy_collects_a_dataset_that_names_it(prior, tmp_path):
+    import json
+
+    run = tmp_path / "run"
+    assert _run(_args(prior, run), tmp_path).returncode == 0
+    best = run / "checkpoints" / "best"
+    out = tmp_path / "explored"
+    done = _run([sys.executable, "-m", "qadapt.cli", "collect", "policy=checkpoint",
+                 f"policy.checkpoint={best}", "variation=finger_offset", "episodes=6",
+                 f"out={out}", "progress=false", f"hydra.run.dir={tmp_path}/h"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    manifest = json.loads((out / "manifest.json").read_text())
+    collected_by = json.dumps(manifest)
+    assert str(best) in collected_by and "checkpoint_sha256" in collected_by
+    # A checkpoint whose spaces do not match the env is refused in one line.
+    wrong = _run([sys.executable, "-m", "qadapt.cli", "collect", "policy=checkpoint",
+                  f"policy.checkpoint={best}", "+env.kwargs={max_items: 2}", "episodes=2",
+                  f"out={tmp_path}/wrong", "progress=false", f"hydra.run.dir={tmp_path}/h"],
+                 tmp_path)
+    assert wrong.returncode == 2
+    assert len(wrong.stderr.strip().splitlines()) == 1 and "(61,)" in wrong.stderr
