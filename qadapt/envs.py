@@ -2,6 +2,7 @@
 
 Holds:
     make_vector_env -- a gymnasium vector env for an EnvConfig and a VariationConfig.
+    make_recorded_env -- the vector env a dataset's environment record describes.
     env_record -- {"id", "kwargs", "wrappers"}: what a dataset or checkpoint records.
 
 The pick cell (and any env registered with a batched ``vector_entry_point``) is built with
@@ -60,3 +61,16 @@ def make_vector_env(env: EnvConfig, variation: VariationConfig, num_envs: int):
         if isinstance(err, BadInput):
             raise
         raise BadInput(f"env {env.id}: {err}") from err
+
+
+def make_recorded_env(record, num_envs: int):
+    """A vector env rebuilt from a dataset's environment record (id, kwargs, wrappers)."""
+    data = record.to_json() if hasattr(record, "to_json") else dict(record)
+    kwargs = dict(data.get("kwargs") or {})
+    env = EnvConfig(id=data["id"], kwargs={k: v for k, v in kwargs.items()
+                                           if k not in ("perturbations", "reveal")})
+    wrappers = {w["name"]: dict(w.get("kwargs") or {}) for w in data.get("wrappers") or []}
+    variation = VariationConfig(name="recorded", perturbations=dict(kwargs.get("perturbations")
+                                                                    or {}),
+                                wrappers=wrappers, reveal=bool(kwargs.get("reveal", False)))
+    return make_vector_env(env, variation, num_envs)

@@ -73,8 +73,13 @@ def build_learner_config(settings: Any) -> LearnerConfig:
 
 @dataclass
 class EvalSettings:
-    """Periodic greedy evaluation during training (every ``every`` steps; 0 = off)."""
+    """Periodic greedy evaluation during training (every ``every`` steps; 0 = off).
 
+    ``env_from``: "data" evaluates in the environment the (new) training data was collected
+    in, as its manifest records it; "config" uses ``env`` and ``variation`` below.
+    """
+
+    env_from: str = "data"
     env: EnvConfig = field(default_factory=EnvConfig)
     variation: VariationConfig = field(default_factory=VariationConfig)
     episodes: int = 200
@@ -86,6 +91,8 @@ class EvalSettings:
             raise BadInput(f"eval.episodes: got {self.episodes!r}, expected a positive integer")
         if self.every < 0:
             raise BadInput(f"eval.every: got {self.every!r}, expected an integer >= 0")
+        if self.env_from not in ("data", "config"):
+            raise BadInput(f"eval.env_from: got {self.env_from!r}, expected 'data' or 'config'")
 
 
 def _paths(key: str, value: Any) -> list[str]:

@@ -56,16 +56,22 @@ def make_evaluator(settings: EvalSettings, maximizer, dataset):
     if settings.every == 0:
         return None
     from qadapt.data import check_spaces
-    from qadapt.envs import make_vector_env
+    from qadapt.envs import make_recorded_env, make_vector_env
     from qadapt.learner.trainer import GreedyEvaluator
 
-    probe = make_vector_env(settings.env, settings.variation, 1)
+    if settings.env_from == "data":
+        record = dataset.manifest.environment
+        def make(n):
+            return make_recorded_env(record, n)
+        name = record.id
+    else:
+        def make(n):
+            return make_vector_env(settings.env, settings.variation, n)
+        name = settings.env.id
+    probe = make(1)
     check_spaces(dataset, probe.single_observation_space, probe.single_action_space,
-                 what=f"evaluation env {settings.env.id}")
-    return GreedyEvaluator(
-        lambda n: make_vector_env(settings.env, settings.variation, n),
-        maximizer, settings.episodes, settings.seed,
-    )
+                 what=f"evaluation env {name}")
+    return GreedyEvaluator(make, maximizer, settings.episodes, settings.seed)
 
 
 def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str, Any]) -> None:

@@ -8,7 +8,8 @@ Holds:
 
 The run directory holds ``checkpoints/last`` (weights plus the full training state: learner,
 sampler, evaluation history; rewritten atomically every ``checkpoint_every`` steps and at the
-end) and ``checkpoints/best`` (the acting weights that scored best in evaluation), plus
+end) and ``checkpoints/best`` (the weights, critics and acting network, that scored best in
+evaluation), plus
 tensorboard logs under ``logs/``. Because evaluation draws from its own seeded streams, a run
 that is killed and resumed from ``last`` ends with the same bytes as one that never stopped.
 """
@@ -176,8 +177,7 @@ class Trainer:
         self._saved_step = self.learner.step
 
     def _save_best(self, record: dict[str, int]) -> None:
-        acting = _prefixed("acting", self.learner.acting_network().state_dict())
-        save_checkpoint(self.best_path, acting,
+        save_checkpoint(self.best_path, self._weights(),
                         self._meta(kind="best", selected_by="greedy evaluation", **record),
                         overwrite=True)
         self.outcome.best_path = self.best_path

@@ -80,7 +80,7 @@ def test_killed_run_resumes_to_the_same_bytes(prior, tmp_path):
         (["learner.learning_rate=-1"], ["learning_rate", "-1"]),
         (["network.form=wide"], ["form", "wide"]),
         (["learner=nonsense"], ["learner", "nonsense"]),
-        (["+eval.env.kwargs={max_items: 3}"], ["(51,)", "(61,)"]),
+        (["eval=pick_cell", "+eval.env.kwargs={max_items: 3}"], ["(51,)", "(61,)"]),
     ],
 )
 def test_bad_input_exits_2_with_one_line(prior, tmp_path, extra, words):
