@@ -36,6 +36,10 @@ JOBS: dict[str, tuple[str, str]] = {
         "train a Q-function from one or more datasets; write a checkpoint",
         "qadapt.jobs.pretrain:main",
     ),
+    "finetune": (
+        "adapt a pretrained Q-function (init=warm|scratch) on a mix of prior and new data",
+        "qadapt.jobs.finetune:main",
+    ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
         "qadapt.data.inspection:main",

@@ -6,6 +6,7 @@ Holds:
     LearnerSettings -- every learner.LearnerConfig field, as an editable config node.
     EvalSettings -- in-training evaluation: env, variation, episodes, how often.
     PretrainJob -- ``qadapt pretrain``: train a Q-function from one or more datasets.
+    FinetuneJob -- ``qadapt finetune``: adapt a pretrained Q-function on prior + new data.
     register_training_schemas -- put them into Hydra's ConfigStore.
 """
 
@@ -136,8 +137,52 @@ class PretrainJob:
             self.shares = [float(s) for s in self.shares]
 
 
+@dataclass
+class FinetuneJob:
+    """``qadapt finetune``: start from an init strategy and train on prior + new data.
+
+    ``share`` is the share of each batch drawn from the new data (the rest from the prior
+    data); ``share=1`` trains on the new data alone (then ``prior`` may be omitted).
+    The network's form comes from the base checkpoint, so every strategy trains the same
+    architecture.
+    """
+
+    base: str = "???"
+    prior: Any = None
+    new: Any = "???"
+    share: float = 0.5
+    init: str = "warm"
+    steps: int = 3000
+    seed: int = 0
+    out: str | None = None
+    checkpoint_every: int = 1000
+    log_every: int = 100
+    memory_limit_mb: int | None = None
+    threads: int = 1
+    progress: bool = True
+    maximizer: MaximizerSettings = field(default_factory=MaximizerSettings)
+    learner: LearnerSettings = field(default_factory=LearnerSettings)
+    eval: EvalSettings = field(default_factory=EvalSettings)
+
+    def __post_init__(self) -> None:
+        if not Path(self.base).exists():
+            raise BadInput(f"base: {self.base} does not exist")
+        self.new = _paths("new", self.new)
+        if not 0.0 < self.share <= 1.0:
+            raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1]")
+        if self.share < 1.0:
+            self.prior = _paths("prior", self.prior)
+        else:
+            self.prior = [] if self.prior is None else _paths("prior", self.prior)
+        if self.steps < 1:
+            raise BadInput(f"steps: got {self.steps!r}, expected a positive integer")
+        if self.seed < 0:
+            raise BadInput(f"seed: got {self.seed!r}, expected a non-negative integer")
+
+
 TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
     "pretrain_schema": (None, PretrainJob),
+    "finetune_schema": (None, FinetuneJob),
     "network_schema": ("network", NetworkSettings),
     "maximizer_schema": ("maximizer", MaximizerSettings),
     "learner_schema": ("learner", LearnerSettings),

@@ -85,3 +85,93 @@ def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str,
 def plain(obj: Any) -> Any:
     """Dataclass config -> JSON-able dict."""
     return dataclasses.asdict(obj) if dataclasses.is_dataclass(obj) else obj
+
+
+# Checkpoints carry a fixed creation time so that the same config and seed give
+# byte-identical checkpoints; the wall-clock duration is in summary.json.
+def _reproducible_time():
+    from datetime import UTC, datetime
+
+    return datetime(1970, 1, 1, tzinfo=UTC)
+
+
+def run_training(
+    *,
+    job: str,
+    datasets: list,
+    shares,
+    network_config,
+    maximizer_settings: MaximizerSettings,
+    learner_config,
+    eval_settings: EvalSettings,
+    eval_dataset,
+    seed: int,
+    out: Path,
+    make_critics,
+    settings: dict[str, Any],
+    steps: int,
+    checkpoint_every: int,
+    log_every: int,
+    progress: bool,
+    memory_limit_mb: int | None,
+    parent: dict[str, Any] | None = None,
+) -> dict[str, Any]:
+    """Train on ``datasets`` and write checkpoints, summary.json and lineage.json in ``out``.
+
+    ``make_critics(arrays) -> (critics, anchor)`` builds the starting critics (and the anchor
+    weights for the L2 penalty, or None). Returns the summary.
+    """
+    from qadapt.checkpoint import CheckpointMetadata, DatasetReference
+    from qadapt.data import MixtureSampler
+    from qadapt.learner import FittedQLearner
+    from qadapt.learner.assembly import transition_arrays
+    from qadapt.learner.trainer import Trainer, TrainingPlan, success_rate
+
+    first = datasets[0]
+    obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()
+    maximizer = build_maximizer(maximizer_settings, act_space)
+    arrays = [transition_arrays(d) for d in datasets]
+    critics, anchor = make_critics(arrays)
+    learner = FittedQLearner(critics, maximizer, learner_config, arrays, seed=seed,
+                             anchor=anchor)
+    memory = None if memory_limit_mb is None else memory_limit_mb * 2**20
+    sampler = MixtureSampler(datasets, shares=shares, batch_size=learner_config.batch_size,
+                             seed=seed, memory_limit_bytes=memory)
+    evaluator = make_evaluator(eval_settings, maximizer, eval_dataset)
+    settings = {**settings, "datasets": [d.fingerprint for d in datasets],
+                "parent": None if parent is None else parent["sha256"]}
+    digest = config_digest(settings)
+    environment = eval_dataset.manifest.environment
+    metadata = CheckpointMetadata(
+        observation_space=obs_space, action_space=act_space,
+        network={"q_network": network_config.to_dict(),
+                 "maximizer": maximizer_settings.as_kwargs()},
+        env_id=environment.id, env_kwargs=dict(environment.kwargs),
+        gradient_step=0, config_digest=digest,
+        parent_checkpoint=None if parent is None else parent["sha256"],
+        datasets=tuple(DatasetReference(path=str(d.path), sha256=d.fingerprint)
+                       for d in datasets),
+        created_at=_reproducible_time(),
+    )
+    plan = TrainingPlan(steps=steps, eval_every=eval_settings.every if evaluator else 0,
+                        checkpoint_every=checkpoint_every, log_every=log_every,
+                        progress_bar=progress)
+    outcome = Trainer(learner, sampler, plan, out, metadata, evaluator).run()
+    result = outcome.best_path or outcome.last_path
+    summary = {
+        "job": job,
+        "steps": outcome.steps,
+        "resumed_from_step": outcome.resumed_from,
+        "seconds": round(outcome.seconds, 2),
+        "evaluations": outcome.history,
+        "best": outcome.best,
+        "best_success_rate": success_rate(outcome.best),
+        "last_success_rate": success_rate(outcome.history[-1] if outcome.history else None),
+        "checkpoint": str(result),
+        "selected": "best" if outcome.best_path else "last",
+        "config_digest": digest,
+    }
+    lineage = {"parent_checkpoint": parent,
+               "datasets": [{"path": str(d.path), "sha256": d.fingerprint} for d in datasets]}
+    write_run_records(Path(out), summary, lineage)
+    return summary

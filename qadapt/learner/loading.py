@@ -1,6 +1,7 @@
 """Loading a trained Q-network from a checkpoint, and acting with it.
 
 Holds:
+    resolve_checkpoint -- a checkpoint directory from a checkpoint or a run directory.
     load_q_network -- the acting network of a checkpoint, checked against expected spaces.
     checkpoint_policy -- a QPolicy over a checkpoint's network, for evaluation or collection.
 """
@@ -19,6 +20,23 @@ from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import QNetworkConfig, build_q_network
 
 DEFAULT_POLICY_MAXIMIZER = {"samples": 64, "elites": 6, "iterations": 2}
+
+
+def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
+    """``path`` itself if it is a checkpoint; for a run directory, the checkpoint its
+    summary.json selected (the best evaluated one when evaluation was on)."""
+    import json
+
+    given = Path(path)
+    if (given / "checkpoint.json").exists():
+        return given
+    summary = given / "summary.json"
+    if summary.exists():
+        try:
+            return Path(json.loads(summary.read_text())["checkpoint"])
+        except (ValueError, KeyError) as err:
+            raise BadInput(f"{key}: {summary} does not name a checkpoint") from err
+    raise BadInput(f"{key}: {given} is neither a checkpoint nor a run directory")
 
 
 def load_q_network(path: str | Path, observation_space=None, action_space=None,
@@ -47,6 +65,7 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
 def checkpoint_policy(path, env, seed: int, gaussian_std: float = 0.0, epsilon: float = 0.0,
                       maximizer_settings: dict | None = None) -> QPolicy:
     """A QPolicy over the checkpoint at ``path``, refusing one trained for other spaces."""
+    path = resolve_checkpoint(path, key="policy.checkpoint")
     network, loaded = load_q_network(path, env.single_observation_space,
                                      env.single_action_space)
     space = env.single_action_space

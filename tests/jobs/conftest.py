@@ -77,3 +77,20 @@ def pick_cell_dataset(tmp_path_factory) -> Path:
     run_ok("collect", "env=pick_cell", "variation=finger_offset", "policy=scripted",
            "episodes=20", "seed=3", f"out={out}", "progress=false", cwd=root)
     return out
+
+
+@pytest.fixture(scope="module")
+def prior(tmp_path_factory) -> Path:
+    """64 scripted-picker episodes in the base cell (module-wide)."""
+    import gymnasium as gym
+
+    import demo_envs
+    from demo_envs.pick_cell import ScriptedPicker
+    from qadapt.data import collect
+
+    out = tmp_path_factory.mktemp("data") / "prior"
+    envs = gym.make_vec(demo_envs.PICK_CELL_ID, num_envs=32)
+    collect(envs, ScriptedPicker(noise=0.15, seed=0), episodes=64, out=out, seed=0,
+            env_record={"id": demo_envs.PICK_CELL_ID, "kwargs": {}, "wrappers": []},
+            progress=False)
+    return out

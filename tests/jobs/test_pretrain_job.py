@@ -10,24 +10,9 @@ import sys
 import time
 from pathlib import Path
 
-import gymnasium as gym
 import pytest
 
-import demo_envs
-from demo_envs.pick_cell import ScriptedPicker
-from qadapt.data import collect
-
 CHECKPOINT_FILES = ("weights.safetensors", "checkpoint.json", "training_state.safetensors")
-
-
-@pytest.fixture(scope="module")
-def prior(tmp_path_factory) -> Path:
-    out = tmp_path_factory.mktemp("data") / "prior"
-    envs = gym.make_vec(demo_envs.PICK_CELL_ID, num_envs=32)
-    collect(envs, ScriptedPicker(noise=0.15, seed=0), episodes=64, out=out, seed=0,
-            env_record={"id": demo_envs.PICK_CELL_ID, "kwargs": {}, "wrappers": []},
-            progress=False)
-    return out
 
 
 def _args(prior: Path, out: Path, *extra: str) -> list[str]:
