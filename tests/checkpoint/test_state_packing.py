@@ -12,10 +12,11 @@ from collections import OrderedDict
 
 import numpy as np
 import pytest
-import safetensors.torch
 import torch
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from safetensors.torch import load as load_safetensors_bytes
+from safetensors.torch import save as save_safetensors_bytes
 
 from qadapt.checkpoint import pack_state, unpack_state
 from qadapt.checkpoint.state_packing import skeleton_from_text, skeleton_to_text
@@ -57,8 +58,8 @@ def round_trip(obj):
     """pack -> safetensors bytes + JSON text -> unpack."""
     tensors, skeleton = pack_state(obj)
     text = skeleton_to_text(skeleton)  # strict JSON: raises on NaN tokens
-    data = safetensors.torch.save(dict(sorted(tensors.items())), metadata={"layout": text})
-    return unpack_state(safetensors.torch.load(data), skeleton_from_text(text))
+    data = save_safetensors_bytes(dict(sorted(tensors.items())), metadata={"layout": text})
+    return unpack_state(load_safetensors_bytes(data), skeleton_from_text(text))
 
 
 # -- strategies ------------------------------------------------------------------------------
