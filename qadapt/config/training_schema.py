@@ -107,11 +107,9 @@ def _paths(key: str, value: Any) -> list[str]:
 
 
 @dataclass
-class PretrainJob:
-    """``qadapt pretrain``: train a Q-function from one or more datasets."""
+class TrainingRunSettings:
+    """What every training job has: length, seed, output, bookkeeping, learner settings."""
 
-    data: Any = "???"
-    shares: Any = None
     steps: int = 5000
     seed: int = 0
     out: str | None = None
@@ -120,25 +118,36 @@ class PretrainJob:
     memory_limit_mb: int | None = None
     threads: int = 1
     progress: bool = True
-    network: NetworkSettings = field(default_factory=NetworkSettings)
     maximizer: MaximizerSettings = field(default_factory=MaximizerSettings)
     learner: LearnerSettings = field(default_factory=LearnerSettings)
     eval: EvalSettings = field(default_factory=EvalSettings)
 
     def __post_init__(self) -> None:
-        self.data = _paths("data", self.data)
         if self.steps < 1:
             raise BadInput(f"steps: got {self.steps!r}, expected a positive integer")
         if self.seed < 0:
             raise BadInput(f"seed: got {self.seed!r}, expected a non-negative integer")
         if self.threads < 1:
             raise BadInput(f"threads: got {self.threads!r}, expected a positive integer")
+
+
+@dataclass
+class PretrainJob(TrainingRunSettings):
+    """``qadapt pretrain``: train a Q-function from one or more datasets."""
+
+    data: Any = "???"
+    shares: Any = None
+    network: NetworkSettings = field(default_factory=NetworkSettings)
+
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        self.data = _paths("data", self.data)
         if self.shares is not None:
             self.shares = [float(s) for s in self.shares]
 
 
 @dataclass
-class FinetuneJob:
+class FinetuneJob(TrainingRunSettings):
     """``qadapt finetune``: start from an init strategy and train on prior + new data.
 
     ``share`` is the share of each batch drawn from the new data (the rest from the prior
@@ -147,24 +156,15 @@ class FinetuneJob:
     architecture.
     """
 
+    steps: int = 3000
     base: str = "???"
     prior: Any = None
     new: Any = "???"
     share: float = 0.5
     init: str = "warm"
-    steps: int = 3000
-    seed: int = 0
-    out: str | None = None
-    checkpoint_every: int = 1000
-    log_every: int = 100
-    memory_limit_mb: int | None = None
-    threads: int = 1
-    progress: bool = True
-    maximizer: MaximizerSettings = field(default_factory=MaximizerSettings)
-    learner: LearnerSettings = field(default_factory=LearnerSettings)
-    eval: EvalSettings = field(default_factory=EvalSettings)
 
     def __post_init__(self) -> None:
+        super().__post_init__()
         if not Path(self.base).exists():
             raise BadInput(f"base: {self.base} does not exist")
         self.new = _paths("new", self.new)
@@ -174,10 +174,6 @@ class FinetuneJob:
             self.prior = _paths("prior", self.prior)
         else:
             self.prior = [] if self.prior is None else _paths("prior", self.prior)
-        if self.steps < 1:
-            raise BadInput(f"steps: got {self.steps!r}, expected a positive integer")
-        if self.seed < 0:
-            raise BadInput(f"seed: got {self.seed!r}, expected a non-negative integer")
 
 
 TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
