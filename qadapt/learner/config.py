@@ -59,7 +59,8 @@ class LearnerConfig:
         ema_decay: decay of the exponential moving average of critic 0 used for acting
             (0 = act with the online weights).
         q_limit: the divergence guard stops training when |Q| exceeds this.
-        refresh_chunk: states per maximiser call during a refresh (bounds memory).
+        refresh_chunk: states per maximiser call during a refresh (bounds memory; 512 keeps
+            the head's activations in cache: about 3x faster than 4096, scripts/bench_learner).
 
     Example:
         >>> LearnerConfig(learning_rate=1e-3).target_mode
@@ -87,7 +88,7 @@ class LearnerConfig:
     anchor_weight: float = 0.0
     ema_decay: float = 0.0
     q_limit: float = 1e4
-    refresh_chunk: int = 4096
+    refresh_chunk: int = 512
 
     def __post_init__(self) -> None:
         _check("gamma", _is_num(self.gamma) and 0.0 <= self.gamma < 1.0, self.gamma,
