@@ -132,9 +132,15 @@ class QNetwork(nn.Module):
         self.register_buffer("action_half_range", (action_high - action_low) / 2)
 
     def set_normalizer(self, mean: torch.Tensor, std: torch.Tensor, min_std: float = 1e-3) -> None:
-        """Observation statistics (e.g. from the training data); tiny stds are floored."""
+        """Observation statistics (e.g. from the training data).
+
+        A column that was (nearly) constant in the data keeps scale 1: dividing by a tiny
+        std would turn the first non-constant value met later (a revealed perturbation, a
+        new sensor reading) into a huge input and wreck a warm start.
+        """
+        std = torch.as_tensor(std, dtype=torch.float32)
         self.obs_mean.copy_(torch.as_tensor(mean, dtype=torch.float32))
-        self.obs_std.copy_(torch.as_tensor(std, dtype=torch.float32).clamp_min(min_std))
+        self.obs_std.copy_(torch.where(std < min_std, torch.ones_like(std), std))
 
     def _norm_obs(self, obs: torch.Tensor) -> torch.Tensor:
         return (obs - self.obs_mean) / self.obs_std

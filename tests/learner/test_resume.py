@@ -92,3 +92,10 @@ def test_cross_entropy_needs_a_sigmoid_output():
         FittedQLearner(CriticPair(make, seed=0),
                        CrossEntropyMaximizer([-1, -1], [1, 1]), LearnerConfig(),
                        [TransitionArrays(**arrays)], seed=0)
+
+
+def test_constant_observation_columns_keep_scale_one():
+    config = QNetworkConfig(torso=(8,), head=(8,))
+    net = build_q_network(3, -torch.ones(1), torch.ones(1), config)
+    net.set_normalizer(torch.tensor([0.0, 5.0, 0.0]), torch.tensor([2.0, 0.0, 1e-9]))
+    assert net.obs_std.tolist() == [2.0, 1.0, 1.0]
