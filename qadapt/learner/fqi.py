@@ -13,6 +13,7 @@ critics follow (copy or Polyak) and the acting EMA is updated.
 from __future__ import annotations
 
 import copy
+import time
 from collections.abc import Mapping, Sequence
 from typing import Protocol
 
@@ -106,8 +107,6 @@ class FittedQLearner:
 
     def refresh_targets(self) -> None:
         """Copy targets if configured so, then recompute every cached target."""
-        import time
-
         if self.config.target_update == "copy" and self.config.copy_every == 0:
             self.critics.hard_update()
         start = time.perf_counter()
