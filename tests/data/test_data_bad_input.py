@@ -388,6 +388,17 @@ class _WritesMarker:
         return (os.system, (f"touch {self.marker}",))
 
 
+def _write_trap_npy(path, array):
+    """Write ``array`` (dtype object) as a .npy file the way numpy pickles object arrays; only
+    writes, so no pickle is ever loaded here."""
+    import pickle
+
+    with open(path, "wb") as handle:
+        np.lib.format.write_array_header_1_0(
+            handle, {"descr": "|O", "fortran_order": False, "shape": array.shape})
+        pickle.dump(array, handle, protocol=3)
+
+
 def _object_array(marker):
     array = np.empty(2, dtype=object)
     array[0] = _WritesMarker(marker)
@@ -398,7 +409,7 @@ def _object_array(marker):
 def test_pickled_object_array_in_dataset_is_refused_unread(write_dataset, tmp_path):
     marker = tmp_path / "unpickled.marker"
     path, _ = write_dataset()
-    np.save(path / "rewards.npy", _object_array(marker), allow_pickle=True)
+    _write_trap_npy(path / "rewards.npy", _object_array(marker))
     with pytest.raises(BadInput, match="rewards.npy.*holds Python objects.*unpickling"):
         open_dataset(path)
     assert not marker.exists()
@@ -411,7 +422,7 @@ def test_pickled_object_array_in_import_is_refused_unread(tmp_path):
     source.mkdir()
     for key, value in arrays.items():
         np.save(source / f"{key}.npy", value)
-    np.save(source / "r.npy", _object_array(marker), allow_pickle=True)
+    _write_trap_npy(source / "r.npy", _object_array(marker))
     with pytest.raises(BadInput, match="r.npy.*holds Python objects"):
         import_arrays(source, MAPPING, tmp_path / "out", env_record=ENV, **SPACES)
     np.savez(tmp_path / "evil.npz", **{**arrays, "r": _object_array(marker)})
