@@ -9,10 +9,10 @@ Holds:
 from __future__ import annotations
 
 from collections.abc import Sequence
-from pathlib import Path
 
 from qadapt.config.schema import CollectJob, PolicyConfig
 from qadapt.errors import BadInput
+from qadapt.jobs.outputs import output_dir
 
 
 def build_policy(policy: PolicyConfig, env, seed: int):
@@ -33,27 +33,11 @@ def build_policy(policy: PolicyConfig, env, seed: int):
                              epsilon=policy.random_rate)
 
 
-def _output_dir(out: str | None, default_name: str) -> Path:
-    """``out`` if given, else ``default_name`` inside the Hydra run directory; the parent
-    folder is created."""
-    if out:
-        path = Path(out)
-    else:
-        from hydra.core.hydra_config import HydraConfig
-
-        path = Path(HydraConfig.get().runtime.output_dir) / default_name
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
-        raise BadInput(f"out: cannot create {path.parent} ({err.strerror})") from err
-    return path
-
-
 def collect_job(cfg: CollectJob) -> int:
     from qadapt.data import collect
     from qadapt.envs import env_record, make_vector_env
 
-    out = _output_dir(cfg.out, "dataset")
+    out = output_dir(cfg.out, "dataset")
     n = cfg.num_envs if cfg.episodes is None else min(cfg.num_envs, cfg.episodes)
     env = make_vector_env(cfg.env, cfg.variation, n)
     policy = build_policy(cfg.policy, env, cfg.seed)

@@ -21,7 +21,7 @@ def finetune_job(cfg: FinetuneJob) -> int:
 
     from qadapt.checkpoint import load_checkpoint
     from qadapt.jobs import training_run as run
-    from qadapt.jobs.collect import _output_dir
+    from qadapt.jobs.outputs import output_dir
     from qadapt.learner.assembly import new_critics, observation_statistics
     from qadapt.learner.init_strategies import init_strategy
     from qadapt.learner.loading import resolve_checkpoint
@@ -30,7 +30,7 @@ def finetune_job(cfg: FinetuneJob) -> int:
     torch.set_num_threads(cfg.threads)
     torch.use_deterministic_algorithms(True)
     strategy = init_strategy(cfg.init)
-    out = _output_dir(cfg.out, "finetune")
+    out = output_dir(cfg.out, "finetune")
     new = run.open_sources(cfg.new)
     prior = run.open_sources(cfg.prior) if cfg.prior else []
     datasets = [*prior, *new]
@@ -46,9 +46,10 @@ def finetune_job(cfg: FinetuneJob) -> int:
     act_space = new[0].action_space.to_space()
 
     def make_critics(arrays):
+        # A strategy that keeps the base's normalisation gets it with the base weights.
+        statistics = None if strategy.uses_base_statistics else observation_statistics(arrays)
         critics = new_critics(int(new[0].obs_dim), act_space.low, act_space.high,
-                              network_config, seed=cfg.seed,
-                              statistics=observation_statistics(arrays))
+                              network_config, seed=cfg.seed, statistics=statistics)
         anchor = strategy.initialise(critics, base.weights, str(base_path))
         return critics, anchor
 

@@ -15,9 +15,9 @@ from qadapt.config.schema import ImportJob
 def import_job(cfg: ImportJob) -> int:
     from qadapt.data import import_arrays
     from qadapt.envs import env_record, make_vector_env
-    from qadapt.jobs.collect import _output_dir
+    from qadapt.jobs.outputs import output_dir
 
-    out = _output_dir(cfg.out, "dataset")
+    out = output_dir(cfg.out, "dataset")
     env = make_vector_env(cfg.env, cfg.variation, 1)
     path = import_arrays(
         cfg.source, dict(cfg.fields), out,

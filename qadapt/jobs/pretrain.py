@@ -21,12 +21,12 @@ def pretrain_job(cfg: PretrainJob) -> int:
     import torch
 
     from qadapt.jobs import training_run as run
-    from qadapt.jobs.collect import _output_dir
+    from qadapt.jobs.outputs import output_dir
     from qadapt.learner.assembly import new_critics, observation_statistics
 
     torch.set_num_threads(cfg.threads)
     torch.use_deterministic_algorithms(True)
-    out = _output_dir(cfg.out, "pretrain")
+    out = output_dir(cfg.out, "pretrain")
     datasets = run.open_sources(cfg.data)
     act_space = datasets[0].action_space.to_space()
     network_config = cfg.network.build()
