@@ -1,0 +1,249 @@
+"""Report sections about how runs trained: chains, learning curves, training logs, filmstrips.
+
+Holds:
+    forgetting_section -- forgetting matrix of each chain (rows: steps, columns: variations), BWT.
+    pooled_curve -- several runs' curves pooled into one (steps, success rates) pair.
+    curve_section -- success against gradient steps from the rows' "curve" and plateau steps.
+    training_log_section -- tensorboard scalars (loss, q_mean, success tags) of runs with a logdir.
+    filmstrip_section -- the PNGs in the study's filmstrips/ folder, or a sentence if none.
+    read_scalars -- the scalar series of one tensorboard log directory, by tag.
+
+Plateau of a curve: the mean success of its last 20% of evaluation points; a strategy "reaches"
+it at the first evaluation step whose success is at least 95% of that plateau.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from qadapt.study.document import Figure, Paragraph, Section, Table
+from qadapt.study.figures import Line, Panel, line_panels, matrix_image
+from qadapt.study.statistics import backward_transfer, steps_to_plateau
+from qadapt.study.view import StudyView, percent
+
+PLATEAU_SHARE = 0.95
+PLATEAU_TAIL = 0.2
+LOG_TAG_WORDS = ("loss", "q_mean", "success")
+
+
+# -- chains ------------------------------------------------------------------------------------
+def _chains(view: StudyView) -> tuple[dict, list[str]]:
+    """Chains grouped by (strategy, variation order): list of per-seed step lists."""
+    by_run: dict[tuple[str, int], list] = {}
+    for row in view.chained:
+        by_run.setdefault((row.strategy, row.seed), []).append(row)
+    groups: dict[tuple[str, tuple[str, ...]], list] = {}
+    notes = []
+    for (strategy, seed), rows in sorted(by_run.items()):
+        rows.sort(key=lambda r: r.chain_step)
+        steps = [r.chain_step for r in rows]
+        if steps != list(range(len(rows))):
+            notes.append(f"{strategy} seed {seed}: chain steps {steps} are not 0, 1, ... "
+                         "without gaps or repeats; left out")
+            continue
+        groups.setdefault((strategy, tuple(r.variation for r in rows)), []).append(rows)
+    return groups, notes
+
+
+def forgetting_section(view: StudyView) -> Section | None:
+    if not view.chained:
+        return None
+    groups, notes = _chains(view)
+    blocks = [Paragraph(
+        "Each chain fine-tunes on one variation after another. Row i: after chain step i; column "
+        "j: success on the variation of step j, counts pooled over the chain's seeds. Backward "
+        "transfer (Lopez-Paz and Ranzato, 2017): BWT = 1/(T-1) sum over i < T-1 of (R[T-1, i] - "
+        "R[i, i]); negative values mean later steps undid earlier ones."
+    )]
+    blocks += [Paragraph(note) for note in notes]
+    for (strategy, order), chains in groups.items():
+        columns = list(order)
+        if view.base_variation is not None and view.base_variation not in columns:
+            columns.append(view.base_variation)
+        size = len(order)
+        successes = np.zeros((size, len(columns)))
+        episodes = np.zeros((size, len(columns)))
+        per_seed = []
+        for chain in chains:
+            wins, totals = np.zeros_like(successes), np.zeros_like(episodes)
+            for step, row in enumerate(chain):
+                for column, variation in enumerate(columns):
+                    found = row.evaluation(variation)
+                    if found is not None:
+                        wins[step, column], totals[step, column] = found.successes, found.episodes
+            successes += wins
+            episodes += totals
+            per_seed.append(_bwt_or_none(_rates(wins, totals)[:, :size]))
+        rates = _rates(successes, episodes)
+        pooled_bwt = _bwt_or_none(rates[:, :size])
+        labels = [f"after {i}: {variation}" for i, variation in enumerate(order)]
+        table_rows = tuple(
+            (label,) + tuple("-" if not np.isfinite(v) else
+                             f"{percent(v)} ({int(s)}/{int(e)})"
+                             for v, s, e in zip(rates[i], successes[i], episodes[i], strict=True))
+            for i, label in enumerate(labels)
+        )
+        title = f"{strategy}: {' -> '.join(order)} ({len(chains)} seed{'s' * (len(chains) > 1)})"
+        blocks.append(Table(("after step",) + tuple(columns), table_rows,
+                            caption=f"Forgetting matrix, {title}"))
+        if size < 2:
+            blocks.append(Paragraph(f"{title}: backward transfer needs at least two steps."))
+        elif pooled_bwt is None:
+            blocks.append(Paragraph(f"{title}: backward transfer not computable (an evaluation "
+                                    "on the diagonal or the last row is missing)."))
+        else:
+            seeds = ", ".join("-" if b is None else f"{b:+.3f}" for b in per_seed)
+            blocks.append(Paragraph(f"{title}: backward transfer {pooled_bwt:+.3f} on the pooled "
+                                    f"matrix; per seed: {seeds}."))
+        blocks.append(Figure(matrix_image(rates, labels, columns, f"Forgetting, {title}"),
+                             f"Forgetting matrix, {title}"))
+    return Section("Forgetting in chains", blocks)
+
+
+def _rates(successes: np.ndarray, episodes: np.ndarray) -> np.ndarray:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(episodes > 0, successes / np.maximum(episodes, 1), np.nan)
+
+
+def _bwt_or_none(matrix: np.ndarray) -> float | None:
+    if matrix.shape[0] < 2:
+        return None
+    try:
+        return backward_transfer(matrix)
+    except ValueError:
+        return None
+
+
+# -- learning curves from the results ----------------------------------------------------------
+def pooled_curve(rows) -> tuple[np.ndarray, np.ndarray]:
+    """Steps and success rates of several runs' curves, counts pooled per step.
+
+    Uses the steps every run evaluated at; if the runs share no step, every step any run has.
+    """
+    step_sets = [{point.step for point in row.curve} for row in rows]
+    shared = set.intersection(*step_sets) or set.union(*step_sets)
+    points = np.array([(p.step, p.successes, p.episodes) for row in rows for p in row.curve
+                       if p.step in shared], dtype=np.int64)
+    steps, inverse = np.unique(points[:, 0], return_inverse=True)
+    wins = np.bincount(inverse, weights=points[:, 1])
+    totals = np.bincount(inverse, weights=points[:, 2])
+    return steps, wins / totals
+
+
+def curve_section(view: StudyView) -> Section | None:
+    curves = {}
+    for strategy in view.settings:
+        runs = [row for row in view.headline_rows(strategy) if row.curve]
+        if runs:
+            curves[strategy] = (runs, *pooled_curve(runs))
+    if not curves:
+        return None
+    lines, table_rows, reach = [], [], {}
+    for strategy, (runs, steps, rates) in curves.items():
+        lines.append(Line(strategy, tuple(int(s) for s in steps), tuple(float(r) for r in rates)))
+        found = steps_to_plateau(steps, rates, PLATEAU_SHARE, PLATEAU_TAIL)
+        reach[strategy] = found
+        table_rows.append((strategy, str(len(runs)), percent(found.plateau),
+                           percent(found.threshold), str(found.step), str(int(steps[-1]))))
+    blocks = [
+        Paragraph("Success during training (greedy evaluations recorded in each run's curve), "
+                  "counts pooled over the headline runs at each step. Plateau: the mean success "
+                  f"of the last {PLATEAU_TAIL:.0%} of a strategy's evaluation points; the step "
+                  f"listed is the first at which the strategy reaches {PLATEAU_SHARE:.0%} of its "
+                  "own plateau."),
+        Table(("strategy", "runs", "plateau", f"{PLATEAU_SHARE:.0%} of plateau",
+               "first step reaching it", "last step"), tuple(table_rows),
+              caption="Steps to plateau"),
+    ]
+    headline = view.headline
+    if headline in reach:
+        mine = reach[headline]
+        for other, theirs in reach.items():
+            if other == headline:
+                continue
+            if theirs.step == 0:
+                blocks.append(Paragraph(f"{other} is at its plateau from step 0, so no ratio of "
+                                        "steps is defined."))
+                continue
+            ratio = mine.step / theirs.step
+            verdict = "within" if ratio <= 0.25 else "not within"
+            blocks.append(Paragraph(
+                f"{headline} reaches {PLATEAU_SHARE:.0%} of its plateau ({percent(mine.plateau)}) "
+                f"at step {mine.step}; {other} reaches {PLATEAU_SHARE:.0%} of its plateau "
+                f"({percent(theirs.plateau)}) at step {theirs.step}. Ratio {ratio:.2f}: "
+                f"{headline} reaches its plateau {verdict} a quarter of {other}'s steps"
+                + (f", though its plateau is lower ({percent(mine.plateau)} against "
+                   f"{percent(theirs.plateau)})." if mine.plateau < theirs.plateau else ".")))
+    blocks.append(Figure(line_panels([Panel("Success during training", "gradient step",
+                                            "success rate", lines)]),
+                         "Success against gradient steps per strategy (pooled headline runs)"))
+    return Section("Learning curves", blocks)
+
+
+# -- tensorboard logs --------------------------------------------------------------------------
+def read_scalars(logdir: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Scalar series of a tensorboard log directory whose tag holds a word of LOG_TAG_WORDS.
+
+    Returns tag -> (steps, values), steps increasing.
+    """
+    from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+
+    accumulator = EventAccumulator(str(logdir), size_guidance={"scalars": 0})
+    accumulator.Reload()
+    series = {}
+    for tag in accumulator.Tags().get("scalars", []):
+        if not any(word in tag for word in LOG_TAG_WORDS):
+            continue
+        events = accumulator.Scalars(tag)
+        steps = np.array([event.step for event in events], dtype=np.int64)
+        values = np.array([event.value for event in events], dtype=float)
+        order = np.argsort(steps, kind="stable")
+        series[tag] = (steps[order], values[order])
+    return series
+
+
+def training_log_section(view: StudyView) -> Section | None:
+    logged = [row for row in view.rows if row.logdir is not None]
+    if not logged:
+        return None
+    panels: dict[str, list[Line]] = {}
+    missing = []
+    for row in sorted(logged, key=lambda r: (r.strategy, r.seed, r.run_id)):
+        path = view.resolve(row.logdir)
+        if not path.is_dir():
+            missing.append(f"{row.run_id} ({row.logdir})")
+            continue
+        for tag, (steps, values) in read_scalars(path).items():
+            panels.setdefault(tag, []).append(Line(row.strategy, tuple(steps.tolist()),
+                                                   tuple(values.tolist()), markers=False))
+    blocks = [Paragraph("Training scalars from the runs' tensorboard logs (tags holding "
+                        f"{', '.join(repr(w) for w in LOG_TAG_WORDS)}); one line per run, "
+                        "coloured by strategy.")]
+    if missing:
+        blocks.append(Paragraph(f"Log directories not found: {', '.join(missing)}."))
+    if panels:
+        blocks.append(Figure(line_panels([Panel(tag, "gradient step", tag.split("/")[-1], lines)
+                                          for tag, lines in sorted(panels.items())]),
+                             "Training scalars per run"))
+    else:
+        blocks.append(Paragraph("No matching scalars were found in the log directories."))
+    return Section("Training logs", blocks)
+
+
+# -- filmstrips --------------------------------------------------------------------------------
+def filmstrip_section(view: StudyView) -> Section:
+    folder = view.study_dir / "filmstrips"
+    images = sorted(folder.glob("*.png")) if folder.is_dir() else []
+    blocks = []
+    for image in images:
+        data = image.read_bytes()
+        if not data.startswith(b"\x89PNG"):
+            blocks.append(Paragraph(f"{image.name} is not a PNG image; left out."))
+            continue
+        blocks.append(Figure(data, f"Filmstrip: {image.stem}"))
+    if not images:
+        blocks.append(Paragraph("No filmstrips: the study directory has no filmstrips/ folder "
+                                "with PNG images (one per strategy), so this section is empty."))
+    return Section("Filmstrips", blocks)
