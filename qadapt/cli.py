@@ -40,6 +40,10 @@ JOBS: dict[str, tuple[str, str]] = {
         "adapt a pretrained Q-function (init=warm|scratch) on a mix of prior and new data",
         "qadapt.jobs.finetune:main",
     ),
+    "evaluate": (
+        "run greedy episodes of checkpoints under variations; success and return with intervals",
+        "qadapt.jobs.evaluate:main",
+    ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
         "qadapt.data.inspection:main",
