@@ -1,6 +1,7 @@
 """Reading a dataset: the manifest, safe file resolution, memory-mapped arrays, verification.
 
 Holds:
+    content_fingerprint -- SHA-256 naming a dataset's content (the manifest minus its time).
     ReplayDataset -- an opened dataset directory. Arrays come out memory-mapped and read-only,
         and only after the files have been verified (checksums and contents).
     open_dataset -- open a dataset directory; verifies at once unless ``verify=False``.
@@ -9,6 +10,7 @@ Holds:
 from __future__ import annotations
 
 import hashlib
+import json
 from pathlib import Path
 
 import numpy as np
@@ -16,9 +18,21 @@ import numpy as np
 from qadapt.data.files import resolve_member
 from qadapt.data.manifest import Manifest, read_manifest
 from qadapt.data.npy_files import NpyHeader, RowReader, read_npy_header, read_rows
-from qadapt.data.schema import MANIFEST_NAME
 from qadapt.data.verification import verify_files
 from qadapt.errors import BadInput
+
+
+def content_fingerprint(manifest: Manifest) -> str:
+    """SHA-256 of the manifest's canonical JSON without its ``created_at`` time.
+
+    The manifest holds every array's checksum, so this names the dataset's content: the same
+    collection run twice (or resumed after a crash) gets the same fingerprint, and so do the
+    checkpoints trained on it.
+    """
+    record = manifest.to_json()
+    record.pop("created_at")
+    text = json.dumps(record, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
 
 
 class ReplayDataset:
@@ -45,8 +59,7 @@ class ReplayDataset:
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path)
         self.manifest: Manifest = read_manifest(self.path)
-        manifest_bytes = (self.path / MANIFEST_NAME).read_bytes()
-        self.fingerprint = hashlib.sha256(manifest_bytes).hexdigest()
+        self.fingerprint = content_fingerprint(self.manifest)
         self._paths: dict[str, Path] = {}
         self._headers: dict[str, NpyHeader] = {}
         for name, entry in self.manifest.fields.items():

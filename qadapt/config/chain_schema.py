@@ -1,0 +1,140 @@
+"""Dataclass schema of ``qadapt chain``: an ordered list of adaptations, one per variation.
+
+Holds:
+    ExploreSettings -- which policy collects each step's new data, and its exploration noise.
+    ChainJob -- the chain's plan: base checkpoint, prior data, variations, per-step budgets.
+    load_variation -- a variation group option (configs/variation/NAME.yaml) by name.
+    register_chain_schemas -- put them into Hydra's ConfigStore.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from qadapt.config.schema import EnvConfig, VariationConfig
+from qadapt.config.training_schema import FinetuneJob, TrainingRunSettings, _paths
+from qadapt.errors import BadInput
+from qadapt.learner.init.settings import InitSettings
+
+EXPLORE_POLICIES = ("base", "latest")
+
+
+@dataclass
+class ExploreSettings:
+    """How a chain step collects its new data.
+
+    ``policy``: "base" explores with the chain's base checkpoint at every step (the policy
+    running on the robot when the change arrived), "latest" with the previous step's result.
+    ``noise``: Gaussian exploration, a fraction of each action dimension's half-range;
+    ``random_rate``: share of uniform random actions.
+    """
+
+    policy: str = "base"
+    noise: float = 0.1
+    random_rate: float = 0.0
+    num_envs: int = 256
+
+    def __post_init__(self) -> None:
+        if self.policy not in EXPLORE_POLICIES:
+            raise BadInput(f"explore.policy: got {self.policy!r}, expected one of "
+                           f"{', '.join(EXPLORE_POLICIES)}")
+        if not 0.0 <= self.noise <= 2.0:
+            raise BadInput(f"explore.noise: got {self.noise!r}, expected a number in [0, 2]")
+        if not 0.0 <= self.random_rate <= 1.0:
+            raise BadInput(f"explore.random_rate: got {self.random_rate!r}, expected a number "
+                           "in [0, 1]")
+        if self.num_envs < 1:
+            raise BadInput(f"explore.num_envs: got {self.num_envs!r}, expected a positive "
+                           "integer")
+
+
+def load_variation(name: str) -> VariationConfig:
+    """The variation group option ``name`` as a typed VariationConfig."""
+    from omegaconf import OmegaConf
+
+    from qadapt.config.hydra_entry import CONFIG_DIR
+
+    folder = CONFIG_DIR / "variation"
+    path = folder / f"{name}.yaml"
+    if not isinstance(name, str) or not name or "/" in name or not path.is_file():
+        known = sorted(p.stem for p in folder.glob("*.yaml"))
+        raise BadInput(f"variations: got {name!r}, expected names from configs/variation: "
+                       f"{', '.join(known)}")
+    node = OmegaConf.load(path)
+    node.pop("defaults", None)
+    merged = OmegaConf.merge(OmegaConf.structured(VariationConfig), node)
+    return OmegaConf.to_object(merged)
+
+
+@dataclass
+class ChainJob(TrainingRunSettings):
+    """``qadapt chain``: for each variation in order, explore it, fine-tune, evaluate.
+
+    Step k fine-tunes from step k-1's checkpoint (step 1 from ``base``) on the prior data plus
+    step k's new data (plus every earlier step's new data with ``keep_earlier``) at ``share``
+    new, for ``steps`` gradient steps, then evaluates on every variation of the chain and the
+    unperturbed cell (``eval_episodes`` each). ``episodes`` new episodes per step. Re-running
+    the same command continues an interrupted chain.
+    """
+
+    steps: int = 3000
+    base: str = "???"
+    prior: Any = "???"
+    variations: list[str] = field(default_factory=list)
+    episodes: int = 100
+    share: float = 0.5
+    keep_earlier: bool = False
+    init: InitSettings = field(default_factory=InitSettings)
+    eval_episodes: int = 200
+    env: EnvConfig = field(default_factory=EnvConfig)
+    explore: ExploreSettings = field(default_factory=ExploreSettings)
+
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        if not Path(self.base).exists():
+            raise BadInput(f"base: {self.base} does not exist")
+        self.prior = _paths("prior", self.prior)
+        if not self.variations:
+            raise BadInput("variations: give the chain's variations, e.g. "
+                           "'variations=[finger_offset,drive_lag]'")
+        self.variations = [str(v) for v in self.variations]
+        for name in self.variations:
+            load_variation(name)
+        if isinstance(self.episodes, bool) or self.episodes < 1:
+            raise BadInput(f"episodes: got {self.episodes!r}, expected a positive integer")
+        if isinstance(self.eval_episodes, bool) or self.eval_episodes < 1:
+            raise BadInput(f"eval_episodes: got {self.eval_episodes!r}, expected a positive "
+                           "integer")
+        if not 0.0 < self.share < 1.0:
+            raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1): a chain "
+                           "trains on prior and new data")
+
+    def finetune_settings(self, *, base: str, prior: list[str], new: list[str], out: str,
+                          seed: int) -> FinetuneJob:
+        """The fine-tuning job of one chain step (validated like ``qadapt finetune``'s)."""
+        return FinetuneJob(
+            steps=self.steps, seed=seed, out=out, checkpoint_every=self.checkpoint_every,
+            log_every=self.log_every, memory_limit_mb=self.memory_limit_mb,
+            threads=self.threads, progress=self.progress, maximizer=self.maximizer,
+            learner=self.learner, eval=self.eval, base=base, prior=prior, new=new,
+            share=self.share, init=self.init,
+        )
+
+
+CHAIN_SCHEMAS: dict[str, tuple[str | None, type]] = {
+    "chain_schema": (None, ChainJob),
+    "explore_schema": ("explore", ExploreSettings),
+}
+
+
+def register_chain_schemas() -> None:
+    from hydra.core.config_store import ConfigStore
+
+    from qadapt.config.training_schema import register_training_schemas
+
+    register_training_schemas()
+    store = ConfigStore.instance()
+    for name, (group, node) in CHAIN_SCHEMAS.items():
+        store.store(name=name, node=node, group=group)
