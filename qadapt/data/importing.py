@@ -8,6 +8,8 @@ Holds:
 from __future__ import annotations
 
 import hashlib
+import zipfile
+import zlib
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -43,7 +45,7 @@ def _load_source(source: str | Path | Sequence[str | Path]) -> tuple[dict[str, A
         if path.is_file() and path.suffix == ".npz":
             try:
                 archive = np.load(path, allow_pickle=False)
-            except (OSError, ValueError) as err:
+            except (OSError, ValueError, zipfile.BadZipFile) as err:
                 raise BadInput(f"{path}: not a readable .npz archive ({err})") from None
             return (
                 dict(archive.items()) if False else {k: archive for k in archive.files},
@@ -92,6 +94,8 @@ def _fetch(arrays: dict[str, Any], name: str, origin: str) -> np.ndarray:
         raise BadInput(
             f"{origin}: array {name!r} cannot be read without unpickling ({err})"
         ) from None
+    except (OSError, EOFError, zipfile.BadZipFile, zlib.error) as err:  # a damaged member
+        raise BadInput(f"{origin}: array {name!r} is damaged in the archive ({err})") from None
 
 
 def import_arrays(
