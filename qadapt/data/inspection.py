@@ -172,9 +172,17 @@ def report_text(report: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+class _OneLineParser(argparse.ArgumentParser):
+    """argparse that reports a usage error in one line (the error, then the usage), exit 2."""
+
+    def error(self, message: str):
+        usage = " ".join(self.format_usage().split()).removeprefix("usage: ")
+        self.exit(2, f"{self.prog}: {message} (usage: {usage})\n")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """``qadapt inspect PATH [--json]``."""
-    parser = argparse.ArgumentParser(
+    parser = _OneLineParser(
         prog="qadapt inspect",
         description="Summarise a replay dataset: counts, returns, success, action ranges, "
         "provenance and checksum status.",
