@@ -56,8 +56,10 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
     try:
         network.load_state_dict(acting)
     except RuntimeError as err:
+        # torch's first line only says "Error(s) in loading state_dict"; the next names keys.
+        detail = " ".join(line.strip() for line in str(err).splitlines()[:2])
         raise BadInput(f"{path}: weights do not fit the recorded network: "
-                       f"{str(err).splitlines()[0]}") from err
+                       f"{detail[:300]}") from err
     network.requires_grad_(False).eval()
     return network, loaded
 
