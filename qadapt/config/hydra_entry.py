@@ -2,6 +2,7 @@
 
 Holds:
     CONFIG_DIR -- the configs/ folder (config groups as folders, one primary file per job).
+    refuse_instantiation -- refuse overrides that would make Hydra build objects (_target_).
     run_job -- compose a job's config from command-line overrides, validate it, run it.
 
 Hydra keeps its own features (``--multirun``, ``--cfg job``, ``--help``,
@@ -73,6 +74,18 @@ def _plain_overrides(argv: Sequence[str]) -> list[str] | None:
     return out
 
 
+def refuse_instantiation(job: str, argv: Sequence[str]) -> None:
+    """Refuse command-line overrides that would make Hydra instantiate an object: any
+    ``_target_`` key or value, and ``hydra.callbacks`` (Hydra builds every callback listed
+    there at start-up, calling whatever its ``_target_`` names). qadapt itself never
+    instantiates from a config; launchers are chosen by name (``launcher=...``)."""
+    for arg in argv:
+        key = arg.split("=", 1)[0].lstrip("+~")
+        if "_target_" in arg or key.startswith(("hydra.callbacks", "hydra/callbacks")):
+            fail(job, BadInput(f"{key}: overrides that make Hydra build objects (_target_, "
+                               "hydra.callbacks) are refused"))
+
+
 def check_config(job: str, overrides: list[str], schema: type) -> None:
     """Compose the job's config with Hydra's compose API and build the typed object."""
     from hydra import compose, initialize_config_dir
@@ -100,6 +113,7 @@ def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
     from qadapt.config.schema import register_schemas, to_typed
 
     register_schemas()
+    refuse_instantiation(job, argv)
     overrides = _plain_overrides(argv)
     if overrides is not None:
         check_config(job, overrides, schema)
