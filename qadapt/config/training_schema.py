@@ -6,7 +6,8 @@ Holds:
     LearnerSettings -- every learner.LearnerConfig field, as an editable config node.
     EvalSettings -- in-training evaluation: env, variation, episodes, how often.
     PretrainJob -- ``qadapt pretrain``: train a Q-function from one or more datasets.
-    FinetuneJob -- ``qadapt finetune``: adapt a pretrained Q-function on prior + new data.
+    FinetuneJob -- ``qadapt finetune``: adapt a pretrained Q-function on prior + new data
+        (its ``init`` node, learner.init.InitSettings, is the configs/init/ group).
     register_training_schemas -- put them into Hydra's ConfigStore.
 """
 
@@ -21,6 +22,7 @@ from typing import Any
 from qadapt.config.schema import EnvConfig, VariationConfig
 from qadapt.errors import BadInput
 from qadapt.learner.config import LearnerConfig
+from qadapt.learner.init.settings import InitSettings
 from qadapt.nets import QNetworkConfig
 
 
@@ -161,7 +163,7 @@ class FinetuneJob(TrainingRunSettings):
     prior: Any = None
     new: Any = "???"
     share: float = 0.5
-    init: str = "warm"
+    init: InitSettings = field(default_factory=InitSettings)
 
     def __post_init__(self) -> None:
         super().__post_init__()
@@ -174,6 +176,7 @@ class FinetuneJob(TrainingRunSettings):
             self.prior = _paths("prior", self.prior)
         else:
             self.prior = [] if self.prior is None else _paths("prior", self.prior)
+        self.init.check_run(self.learner.anchor_weight, has_prior=bool(self.prior))
 
 
 TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
@@ -183,6 +186,7 @@ TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
     "maximizer_schema": ("maximizer", MaximizerSettings),
     "learner_schema": ("learner", LearnerSettings),
     "eval_schema": ("eval", EvalSettings),
+    "init_schema": ("init", InitSettings),
 }
 
 

@@ -23,7 +23,7 @@ def finetune_job(cfg: FinetuneJob) -> int:
     from qadapt.jobs import training_run as run
     from qadapt.jobs.outputs import output_dir
     from qadapt.learner.assembly import new_critics, observation_statistics
-    from qadapt.learner.init_strategies import init_strategy
+    from qadapt.learner.init import InitContext, init_strategy
     from qadapt.learner.loading import resolve_checkpoint
     from qadapt.nets import QNetworkConfig
 
@@ -50,8 +50,11 @@ def finetune_job(cfg: FinetuneJob) -> int:
         statistics = None if strategy.uses_base_statistics else observation_statistics(arrays)
         critics = new_critics(int(new[0].obs_dim), act_space.low, act_space.high,
                               network_config, seed=cfg.seed, statistics=statistics)
-        anchor = strategy.initialise(critics, base.weights, str(base_path))
-        return critics, anchor
+        outcome = strategy.initialise(InitContext(
+            critics=critics, base_weights=base.weights, where=str(base_path), prior=prior,
+            gamma=cfg.learner.gamma, seed=cfg.seed))
+        # The third item is the run's record of how its critics started.
+        return critics, outcome.anchor, {**strategy.describe(), **outcome.report}
 
     settings = {k: run.plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "progress", "prior", "new", "base")}

@@ -119,7 +119,10 @@ def run_training(
     """Train on ``datasets`` and write checkpoints, summary.json and lineage.json in ``out``.
 
     ``make_critics(arrays) -> (critics, anchor)`` builds the starting critics (and the anchor
-    weights for the L2 penalty, or None). Returns the summary.
+    weights for the L2 penalty, or None); it may return a third item, a JSON-able record of
+    how the critics started (the init strategy and its settings), which summary.json,
+    lineage.json and every checkpoint's metadata (``extra["initialisation"]``) then carry.
+    Returns the summary.
     """
     from qadapt.checkpoint import CheckpointMetadata, DatasetReference
     from qadapt.data import MixtureSampler
@@ -131,7 +134,8 @@ def run_training(
     obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()
     maximizer = build_maximizer(maximizer_settings, act_space)
     arrays = [transition_arrays(d) for d in datasets]
-    critics, anchor = make_critics(arrays)
+    critics, anchor, *record = make_critics(arrays)
+    initialisation = record[0] if record else None
     learner = FittedQLearner(critics, maximizer, learner_config, arrays, seed=seed,
                              anchor=anchor)
     memory = None if memory_limit_mb is None else memory_limit_mb * 2**20
@@ -152,6 +156,7 @@ def run_training(
         datasets=tuple(DatasetReference(path=str(d.path), sha256=d.fingerprint)
                        for d in datasets),
         created_at=_reproducible_time(),
+        extra={} if initialisation is None else {"initialisation": initialisation},
     )
     plan = TrainingPlan(steps=steps, eval_every=eval_settings.every if evaluator else 0,
                         checkpoint_every=checkpoint_every, log_every=log_every,
@@ -173,5 +178,7 @@ def run_training(
     }
     lineage = {"parent_checkpoint": parent,
                "datasets": [{"path": str(d.path), "sha256": d.fingerprint} for d in datasets]}
+    if initialisation is not None:
+        summary["initialisation"] = lineage["initialisation"] = initialisation
     write_run_records(Path(out), summary, lineage)
     return summary

@@ -56,7 +56,8 @@ class FittedQLearner:
         config: LearnerConfig.
         sources: every source's arrays (refresh mode reads all of them at each refresh).
         seed: seed of the learner's own random stream (maximiser and penalty samples).
-        anchor: parameter name -> tensor for the anchor penalty (same for both critics).
+        anchor: parameter name -> tensor for the anchor penalty, one mapping for every
+            critic or a sequence of one mapping per online critic.
 
     Example: see tests/learner/test_fqi.py.
     """
@@ -68,7 +69,7 @@ class FittedQLearner:
         config: LearnerConfig,
         sources: Sequence[TransitionArrays],
         seed: int,
-        anchor: Mapping[str, torch.Tensor] | None = None,
+        anchor: Mapping[str, torch.Tensor] | Sequence[Mapping[str, torch.Tensor]] | None = None,
     ) -> None:
         if config.loss == "cross_entropy" and critics.online[0].config.output != "sigmoid":
             raise ValueError("loss: got 'cross_entropy', which needs a sigmoid network output")
@@ -78,7 +79,13 @@ class FittedQLearner:
         self.maximizer = maximizer
         self.config = config
         self.sources = list(sources)
-        self.anchor = {k: v.detach().clone() for k, v in (anchor or {}).items()}
+        if isinstance(anchor, Mapping):
+            anchor = [anchor] * len(critics.online)
+        anchor = list(anchor or [])
+        if anchor and len(anchor) != len(critics.online):
+            raise ValueError(f"anchor: got {len(anchor)} mappings, expected one per online "
+                             f"critic ({len(critics.online)})")
+        self.anchors = [{k: v.detach().clone() for k, v in a.items()} for a in anchor]
         self.generator = torch.Generator().manual_seed(int(seed))
         params = [p for net in critics.online for p in net.parameters() if p.requires_grad]
         self.optimizer = torch.optim.Adam(params, lr=config.learning_rate)
@@ -173,7 +180,7 @@ class FittedQLearner:
             if j == 0:
                 raw_first = raw
             if cfg.anchor_weight > 0:
-                loss = loss + cfg.anchor_weight * anchor_penalty(net, self.anchor)
+                loss = loss + cfg.anchor_weight * anchor_penalty(net, self.anchors[j])
         total = loss + cfg.conservative_weight * penalty
 
         if not torch.isfinite(total):
