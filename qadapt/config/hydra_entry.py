@@ -13,6 +13,7 @@ before any work with one line naming the key, instead of Hydra's multi-line repo
 
 from __future__ import annotations
 
+import re
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -20,6 +21,8 @@ from pathlib import Path
 from qadapt.errors import BadInput, TrainingFailed
 
 CONFIG_DIR = Path(__file__).resolve().parents[2] / "configs"
+# A ``_target_`` key inside a dict value (``key={_target_: os.system}``), not in a path.
+_TARGET_IN_VALUE = re.compile(r"(^|[{,\s])['\"]?_target_['\"]?\s*:")
 HYDRA_FLAGS_WITH_VALUE = {"--cfg", "-c", "--package", "-p", "--config-name", "-cn",
                           "--config-path", "-cp", "--config-dir", "-cd", "--info", "-i"}
 
@@ -80,8 +83,10 @@ def refuse_instantiation(job: str, argv: Sequence[str]) -> None:
     there at start-up, calling whatever its ``_target_`` names). qadapt itself never
     instantiates from a config; launchers are chosen by name (``launcher=...``)."""
     for arg in argv:
-        key = arg.split("=", 1)[0].lstrip("+~")
-        if "_target_" in arg or key.startswith(("hydra.callbacks", "hydra/callbacks")):
+        key, _, value = arg.partition("=")
+        key = key.lstrip("+~")
+        builds = "_target_" in re.split(r"[./]", key) or _TARGET_IN_VALUE.search(value)
+        if builds or key.startswith(("hydra.callbacks", "hydra/callbacks")):
             fail(job, BadInput(f"{key}: overrides that make Hydra build objects (_target_, "
                                "hydra.callbacks) are refused"))
 
