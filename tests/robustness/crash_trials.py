@@ -61,6 +61,7 @@ def available_jobs() -> list[str]:
 
 
 def _command(job: str, ws: Workspace, out: Path, steps: int) -> list[str]:
+    out.parent.mkdir(parents=True, exist_ok=True)
     return [sys.executable, "-m", "qadapt.cli", *TRAINING_COMMANDS[job](ws, out, steps),
             f"hydra.run.dir={out}-hydra"]
 
