@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import pytest
+
 from tests.robustness.crash_trials import checkpoint_digests, reference_run
 
 
@@ -20,6 +22,7 @@ def test_pretrain_twice_gives_identical_checkpoint_bytes(workspace, tmp_path):
     assert checkpoint_digests(out) == first
 
 
+@pytest.mark.slow  # two training processes, about 15 s
 def test_finetune_twice_gives_identical_checkpoint_bytes(workspace, tmp_path):
     a, _ = reference_run("finetune", workspace, tmp_path / "a", steps=20)
     b, _ = reference_run("finetune", workspace, tmp_path / "b", steps=20)
