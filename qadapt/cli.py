@@ -40,9 +40,25 @@ JOBS: dict[str, tuple[str, str]] = {
         "adapt a pretrained Q-function (init=warm|scratch) on a mix of prior and new data",
         "qadapt.jobs.finetune:main",
     ),
+    "chain": (
+        "adapt step by step to a list of variations (explore, fine-tune, evaluate); resumable",
+        "qadapt.jobs.chain:main",
+    ),
     "evaluate": (
         "run greedy episodes of checkpoints under variations; success and return with intervals",
         "qadapt.jobs.evaluate:main",
+    ),
+    "study": (
+        "run a grid of fine-tuning runs (strategies, variations, seeds, budgets, chains); report",
+        "qadapt.study.runner:main",
+    ),
+    "cell": (
+        "run one cell of a study (qadapt study launches these)",
+        "qadapt.study.cells:main",
+    ),
+    "report": (
+        "write report.html and summary.md from a study directory",
+        "qadapt.study.report:report_main",
     ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",

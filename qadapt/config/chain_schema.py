@@ -3,7 +3,6 @@
 Holds:
     ExploreSettings -- which policy collects each step's new data, and its exploration noise.
     ChainJob -- the chain's plan: base checkpoint, prior data, variations, per-step budgets.
-    load_variation -- a variation group option (configs/variation/NAME.yaml) by name.
     register_chain_schemas -- put them into Hydra's ConfigStore.
 """
 
@@ -13,7 +12,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from qadapt.config.schema import EnvConfig, VariationConfig
+from qadapt.config.compose import variation_by_name
+from qadapt.config.schema import EnvConfig
 from qadapt.config.training_schema import FinetuneJob, TrainingRunSettings, _paths
 from qadapt.errors import BadInput
 from qadapt.learner.init.settings import InitSettings
@@ -50,24 +50,6 @@ class ExploreSettings:
                            "integer")
 
 
-def load_variation(name: str) -> VariationConfig:
-    """The variation group option ``name`` as a typed VariationConfig."""
-    from omegaconf import OmegaConf
-
-    from qadapt.config.hydra_entry import CONFIG_DIR
-
-    folder = CONFIG_DIR / "variation"
-    path = folder / f"{name}.yaml"
-    if not isinstance(name, str) or not name or "/" in name or not path.is_file():
-        known = sorted(p.stem for p in folder.glob("*.yaml"))
-        raise BadInput(f"variations: got {name!r}, expected names from configs/variation: "
-                       f"{', '.join(known)}")
-    node = OmegaConf.load(path)
-    node.pop("defaults", None)
-    merged = OmegaConf.merge(OmegaConf.structured(VariationConfig), node)
-    return OmegaConf.to_object(merged)
-
-
 @dataclass
 class ChainJob(TrainingRunSettings):
     """``qadapt chain``: for each variation in order, explore it, fine-tune, evaluate.
@@ -75,7 +57,9 @@ class ChainJob(TrainingRunSettings):
     Step k fine-tunes from step k-1's checkpoint (step 1 from ``base``) on the prior data plus
     step k's new data (plus every earlier step's new data with ``keep_earlier``) at ``share``
     new, for ``steps`` gradient steps, then evaluates on every variation of the chain and the
-    unperturbed cell (``eval_episodes`` each). ``episodes`` new episodes per step. Re-running
+    unperturbed cell (``eval_episodes`` each, scenes from ``eval_seed``: not the in-training
+    evaluation's scenes, so picking the best checkpoint does not flatter its final score).
+    ``episodes`` new episodes per step. Re-running
     the same command continues an interrupted chain.
     """
 
@@ -88,6 +72,7 @@ class ChainJob(TrainingRunSettings):
     keep_earlier: bool = False
     init: InitSettings = field(default_factory=InitSettings)
     eval_episodes: int = 200
+    eval_seed: int = 777
     env: EnvConfig = field(default_factory=EnvConfig)
     explore: ExploreSettings = field(default_factory=ExploreSettings)
 
@@ -101,7 +86,7 @@ class ChainJob(TrainingRunSettings):
                            "'variations=[finger_offset,drive_lag]'")
         self.variations = [str(v) for v in self.variations]
         for name in self.variations:
-            load_variation(name)
+            variation_by_name(name)
         if isinstance(self.episodes, bool) or self.episodes < 1:
             raise BadInput(f"episodes: got {self.episodes!r}, expected a positive integer")
         if isinstance(self.eval_episodes, bool) or self.eval_episodes < 1:

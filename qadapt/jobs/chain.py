@@ -21,7 +21,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from qadapt.config.chain_schema import ChainJob, load_variation
+from qadapt.config.chain_schema import ChainJob
+from qadapt.config.compose import variation_by_name
 from qadapt.errors import BadInput
 
 RECORD_NAME = "chain.json"
@@ -133,7 +134,7 @@ def _evaluations(cfg: ChainJob, checkpoint: str, seed: int) -> list[dict[str, An
     from qadapt.jobs.evaluate import evaluate_checkpoint
 
     names = [BASE_CELL, *[v for v in dict.fromkeys(cfg.variations) if v != BASE_CELL]]
-    return [evaluate_checkpoint(checkpoint, cfg.env, load_variation(name), cfg.eval_episodes,
+    return [evaluate_checkpoint(checkpoint, cfg.env, variation_by_name(name), cfg.eval_episodes,
                                 seed=seed, threads=cfg.threads)
             for name in names]
 
@@ -177,7 +178,7 @@ def chain_job(cfg: ChainJob) -> int:
             previous = done["checkpoint"]["path"]
             earlier_new.append(done["dataset"]["path"])
             continue
-        variation = load_variation(name)
+        variation = variation_by_name(name)
         step_dir.mkdir(parents=True, exist_ok=True)
         explorer = str(base_path) if cfg.explore.policy == "base" else previous
         # Distinct, fixed seeds per step: collection and training never share a stream.
@@ -200,7 +201,7 @@ def chain_job(cfg: ChainJob) -> int:
             "checkpoint": {"path": checkpoint, "sha256": identity},
             "training": {"steps": summary["steps"], "selected": summary["selected"],
                          "best_success_rate": summary["best_success_rate"]},
-            "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval.seed),
+            "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval_seed),
         }
         _write_json(step_dir / STEP_RECORD_NAME, step)
         record.finish_step(step)

@@ -136,7 +136,7 @@ def evaluation_table(results: list[dict[str, Any]]) -> str:
 
 
 def _variations(cfg: EvaluateJob) -> list[VariationConfig]:
-    from qadapt.config.evaluate_schema import variation_by_name
+    from qadapt.config.compose import variation_by_name
 
     if cfg.variations is None:
         return [cfg.variation]

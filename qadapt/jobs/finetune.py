@@ -1,7 +1,8 @@
 """``qadapt finetune``: adapt a pretrained Q-function on prior plus new data.
 
 Holds:
-    finetune_job -- the job body: base + init strategy -> learner on the mixture -> checkpoints.
+    run_finetune -- base + init strategy -> learner on the mixture -> checkpoints; the summary.
+    finetune_job -- the job body (exit status).
     main -- the console entry point (Hydra overrides on the command line).
 
 The result's lineage names its parent checkpoint (by identity hash) and every dataset by
@@ -16,7 +17,8 @@ from collections.abc import Sequence
 from qadapt.config.training_schema import FinetuneJob, build_learner_config
 
 
-def finetune_job(cfg: FinetuneJob) -> int:
+def run_finetune(cfg: FinetuneJob) -> dict:
+    """Fine-tune as ``cfg`` says; return the run's summary (also in ``summary.json``)."""
     import torch
 
     from qadapt.checkpoint import load_checkpoint
@@ -70,6 +72,11 @@ def finetune_job(cfg: FinetuneJob) -> int:
     print(f"finetune ({strategy.name}): {summary['steps']} gradient steps; best greedy success "
           f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")
+    return summary
+
+
+def finetune_job(cfg: FinetuneJob) -> int:
+    run_finetune(cfg)
     return 0
 
 

@@ -14,6 +14,7 @@ it at the first evaluation step whose success is at least 95% of that plateau.
 
 from __future__ import annotations
 
+import logging
 from pathlib import Path
 
 import numpy as np
@@ -189,6 +190,8 @@ def read_scalars(logdir: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     Returns tag -> (steps, values), steps increasing.
     """
     from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+
+    logging.getLogger("tensorboard").setLevel(logging.WARNING)  # no line per log file
 
     accumulator = EventAccumulator(str(logdir), size_guidance={"scalars": 0})
     accumulator.Reload()

@@ -1,0 +1,171 @@
+"""Running one cell of a study: ``qadapt cell study=DIR cell=ID`` (the launcher calls this).
+
+Holds:
+    cell_dir -- where a cell's runs and its rows go.
+    run_cell -- run a cell (skipped when its rows exist) and write its results rows.
+    cell_job -- the job body; main -- the console entry point.
+
+A fine-tuning cell is exactly ``qadapt finetune`` with the overrides its cell record implies
+(composed the same way), then a final evaluation on the unperturbed cell and its variation
+on scenes the in-training evaluation never saw. A chain cell is ``qadapt chain``. Rows are
+written last, atomically: a cell either has its rows or is run (and resumes) again.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from qadapt.config.study_schema import CellJob
+from qadapt.errors import BadInput
+from qadapt.study.arms import study_arm
+from qadapt.study.plan import Cell, StudyPlan
+
+ROWS_NAME = "rows.json"
+BASE_CELL = "none"
+
+
+def cell_dir(study_dir: Path, cell_id: str) -> Path:
+    return Path(study_dir) / "cells" / cell_id
+
+
+def _quoted(key: str, value: str) -> str:
+    if "'" in value:
+        raise BadInput(f"{key}: {value!r} holds a single quote, which an override cannot carry")
+    return f"{key}='{value}'"
+
+
+def _evaluation(result: dict[str, Any]) -> dict[str, Any]:
+    return {k: result[k] for k in ("variation", "successes", "episodes", "returns", "lengths")}
+
+
+def _evaluate(checkpoint: str, names: list[str], settings: dict[str, Any]) -> list[dict]:
+    from qadapt.config.compose import variation_by_name
+    from qadapt.jobs.evaluate import evaluate_checkpoint
+
+    return [_evaluation(evaluate_checkpoint(checkpoint, None, variation_by_name(name),
+                                            settings["eval_episodes"],
+                                            seed=settings["eval_seed"]))
+            for name in names]
+
+
+def _row(cell: Cell, **fields: Any) -> dict[str, Any]:
+    from qadapt.study.results import ResultRow
+
+    row = {"run_id": cell.id, "variation": cell.variation or BASE_CELL,
+           "strategy": cell.arm or "base", "seed": cell.seed if cell.seed is not None else 0,
+           "new_episodes": cell.episodes, "share": cell.share, "indicator": False,
+           "steps": 0, "chain_step": None, "curve": [], "logdir": None, **fields}
+    return ResultRow.from_dict(row).to_dict()  # validated against the results schema
+
+
+def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
+    """One row per variation (the base's success there and on the unperturbed cell), so the
+    base sits beside the strategies in every per-variation table."""
+    names = list(dict.fromkeys([BASE_CELL, *plan.settings["variations"],
+                                *plan.settings["chain"]["variations"]]))
+    results = dict(zip(names, _evaluate(plan.base, names, plan.settings), strict=True))
+    return [_row(cell, run_id=f"base__{name}", variation=name,
+                 evaluations=[results[BASE_CELL]] + ([results[name]] if name != BASE_CELL
+                                                     else []),
+                 checkpoint=plan.base, run_dir=plan.base)
+            for name in names]
+
+
+def _common_overrides(plan: StudyPlan, cell: Cell, out: Path) -> list[str]:
+    settings = plan.settings
+    return [_quoted("base", plan.base), f"steps={settings['steps']}", f"seed={cell.seed}",
+            _quoted("out", str(out)), "progress=false", "threads=1",
+            *settings["finetune"]]
+
+
+def _finetune_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
+    from qadapt.config.compose import compose_typed
+    from qadapt.config.training_schema import FinetuneJob, register_training_schemas
+    from qadapt.jobs.finetune import run_finetune
+
+    arm = study_arm(cell.arm)
+    run_dir = where / "run"
+    overrides = [*_common_overrides(plan, cell, run_dir), _quoted("new", cell.data),
+                 *arm.finetune_overrides(cell.share)]
+    if arm.uses_prior:
+        overrides.append(_quoted("prior", plan.prior))
+    register_training_schemas()
+    summary = run_finetune(compose_typed("finetune", overrides, FinetuneJob, key=cell.id))
+    checkpoint = summary["checkpoint"]
+    return [_row(cell, steps=summary["steps"], curve=summary["evaluations"],
+                 evaluations=_evaluate(checkpoint, [BASE_CELL, cell.variation], plan.settings),
+                 checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(run_dir / "logs"))]
+
+
+def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
+    from qadapt.config.chain_schema import ChainJob, register_chain_schemas
+    from qadapt.config.compose import compose_typed
+    from qadapt.jobs.chain import chain_job
+
+    settings = plan.settings
+    arm = study_arm(cell.arm)
+    out = where / "chain"
+    overrides = [*_common_overrides(plan, cell, out), _quoted("prior", plan.prior),
+                 f"variations=[{','.join(cell.variations)}]", f"episodes={cell.episodes}",
+                 f"init={arm.init}", f"share={cell.share}",
+                 f"explore.policy={settings['chain']['explore']}",
+                 f"explore.noise={settings['explore_noise']}",
+                 f"eval_episodes={settings['eval_episodes']}",
+                 f"eval_seed={settings['eval_seed']}"]
+    register_chain_schemas()
+    chain_job(compose_typed("chain", overrides, ChainJob, key=cell.id))
+    record = json.loads((out / "chain.json").read_text())
+    rows = []
+    for step in record["steps"]:
+        run_dir = Path(step["checkpoint"]["path"]).parents[1]
+        summary = json.loads((run_dir / "summary.json").read_text())
+        rows.append(_row(
+            cell, run_id=f"{cell.id}__step{step['index']}", variation=step["variation"],
+            steps=summary["steps"], chain_step=step["index"], curve=summary["evaluations"],
+            evaluations=[_evaluation(e) for e in step["evaluations"]],
+            checkpoint=step["checkpoint"]["path"], run_dir=str(run_dir),
+            logdir=str(run_dir / "logs")))
+    return rows
+
+
+def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
+    """Run cell ``cell_id`` of the study at ``study_dir`` unless its rows exist; its rows."""
+    from qadapt.data.files import write_text_durably
+
+    study_dir = Path(study_dir)
+    plan = StudyPlan.read(study_dir)
+    cell = plan.cell(cell_id)
+    where = cell_dir(study_dir, cell.id)
+    rows_path = where / ROWS_NAME
+    if rows_path.exists():
+        print(f"cell {cell.id}: finished earlier, skipped")
+        return json.loads(rows_path.read_text())
+    where.mkdir(parents=True, exist_ok=True)
+    if cell.kind == "base":
+        rows = _base_rows(plan, cell)
+    elif cell.kind == "finetune":
+        rows = _finetune_rows(plan, cell, where)
+    else:
+        rows = _chain_rows(plan, cell, where)
+    write_text_durably(rows_path, json.dumps(rows, indent=1))
+    print(f"cell {cell.id}: done")
+    return rows
+
+
+def cell_job(cfg: CellJob) -> int:
+    import torch
+
+    torch.set_num_threads(1)  # cells run side by side; one thread each
+    run_cell(cfg.study, cfg.cell)
+    return 0
+
+
+def main(argv: Sequence[str]) -> int:
+    from qadapt.config.hydra_entry import run_job
+    from qadapt.config.study_schema import register_study_schemas
+
+    register_study_schemas()
+    return run_job("cell", CellJob, cell_job, argv)
