@@ -68,13 +68,17 @@ def _command(job: str, ws: Workspace, out: Path, steps: int) -> list[str]:
 
 def checkpoint_digests(run: Path) -> dict[str, str]:
     """Every file of every checkpoint under ``run`` (not the hidden ``.NAME.writing-*`` or
-    ``.NAME.replaced-*`` leftovers of a killed save)."""
+    ``.NAME.replaced-*`` leftovers of a killed save); ``run``'s own path inside
+    checkpoint.json is replaced by ``<run>`` so runs in two folders compare."""
     digests = {}
     for path in sorted(run.rglob("*")):
         parts = path.relative_to(run).parts
         if path.is_file() and not any(p.startswith(".") for p in parts) and (
                 path.suffix == ".safetensors" or path.name == "checkpoint.json"):
-            digests["/".join(parts)] = hashlib.sha256(path.read_bytes()).hexdigest()
+            data = path.read_bytes()
+            if path.name == "checkpoint.json":  # a chain records paths of data inside ``run``
+                data = data.replace(str(run).encode(), b"<run>")
+            digests["/".join(parts)] = hashlib.sha256(data).hexdigest()
     return digests
 
 
