@@ -49,6 +49,11 @@ class EnvConfig:
     def __post_init__(self) -> None:
         if not isinstance(self.id, str) or not self.id:
             raise BadInput(f"env.id: got {self.id!r}, expected a gymnasium environment id")
+        # gymnasium reads "module:EnvId" as "import module first": a config or a dataset's
+        # manifest could then make qadapt import any installed module.
+        if ":" in self.id:
+            raise BadInput(f"env.id: got {self.id!r}; ids of the form module:Name would import "
+                           "a module, give a registered id (e.g. Pendulum-v1)")
 
 
 @dataclass

@@ -3,6 +3,7 @@
 Holds:
     BasePlan -- how a study makes its prior data and base checkpoint when none are given.
     SweepPlan -- a one-dimensional sweep (data budgets or shares) on one variation.
+    IndicatorPlan -- runs with a source indicator (prior and new data told apart).
     ChainPlan -- the chain a study runs (variations in order) and with which strategies.
     StudyJob -- the whole study: variations x strategies x seeds, sweeps, chain, evaluation.
     CellJob -- ``qadapt cell``: one cell of a study, as its launcher runs it.
@@ -17,8 +18,6 @@ from pathlib import Path
 from qadapt.config.compose import variation_by_name
 from qadapt.errors import BadInput
 from qadapt.study.arms import study_arm
-
-LAUNCHERS = ("local", "parallel", "cluster", "cluster_local")
 
 
 def _names(key: str, values, check) -> list[str]:
@@ -59,6 +58,16 @@ class SweepPlan:
 
 
 @dataclass
+class IndicatorPlan:
+    """Runs with a source indicator (``kinds``: flag, per_source) on ``variation`` for
+    ``strategies`` (every seed) at the headline budget and share; empty kinds: none."""
+
+    variation: str = "finger_offset"
+    kinds: list[str] = field(default_factory=list)
+    strategies: list[str] = field(default_factory=lambda: ["warm"])
+
+
+@dataclass
 class ChainPlan:
     """A chain over ``variations`` (empty: no chain) for each of ``strategies`` and seed."""
 
@@ -72,11 +81,12 @@ class StudyJob:
     """``qadapt study``: every cell of a grid, resumable, then the report.
 
     The headline grid is ``variations x strategies x seeds`` at ``episodes`` new episodes and
-    ``share`` new data; ``budgets`` and ``shares`` add sweeps on one variation, ``chain`` a
-    chain of adaptations. ``finetune`` holds overrides every fine-tuning run gets (any
-    ``qadapt finetune`` key, e.g. ``eval.every=250``). ``base``/``prior`` name an existing
-    checkpoint and dataset; left null, ``make_base`` says how to make them. Cells run through
-    Hydra's multirun with ``launcher`` (local, parallel, cluster, cluster_local) and
+    ``share`` new data; ``budgets``, ``shares`` and ``indicators`` add sweeps on one
+    variation, ``chain`` a chain of adaptations. ``finetune`` holds overrides every
+    fine-tuning run gets (any ``qadapt finetune`` key, e.g. ``eval.every=250``).
+    ``base``/``prior`` name an existing checkpoint and dataset; left null, ``make_base``
+    says how to make them. Cells run through Hydra's multirun with the ``launcher`` group's
+    choice (local, parallel, cluster, cluster_local; configs/launcher/) and
     ``launcher_overrides`` (e.g. ``hydra.launcher.partition=cpu``).
     """
 
@@ -93,13 +103,13 @@ class StudyJob:
     explore_noise: float = 0.1
     budgets: SweepPlan = field(default_factory=SweepPlan)
     shares: SweepPlan = field(default_factory=SweepPlan)
+    indicators: IndicatorPlan = field(default_factory=IndicatorPlan)
     chain: ChainPlan = field(default_factory=ChainPlan)
     finetune: list[str] = field(default_factory=list)
     eval_episodes: int = 200
     eval_seed: int = 777
     level: float = 0.5
     filmstrip_episodes: int = 2
-    launcher: str = "parallel"
     launcher_overrides: list[str] = field(default_factory=list)
     report_reps: int = 2000
 
@@ -129,9 +139,6 @@ class StudyJob:
             raise BadInput(f"explore_noise: got {self.explore_noise!r}, expected [0, 2]")
         if not 0.0 < self.level < 1.0:
             raise BadInput(f"level: got {self.level!r}, expected a number in (0, 1)")
-        if self.launcher not in LAUNCHERS:
-            raise BadInput(f"launcher: got {self.launcher!r}, expected one of "
-                           f"{', '.join(LAUNCHERS)}")
         for key, sweep in (("budgets", self.budgets), ("shares", self.shares)):
             if sweep.values:
                 variation_by_name(sweep.variation, key=f"{key}.variation")
@@ -145,6 +152,16 @@ class StudyJob:
             if not 0.0 < value <= 1.0:
                 raise BadInput(f"shares.values: got {value!r}, expected new-data shares in "
                                "(0, 1]")
+        if self.indicators.kinds:
+            from qadapt.learner.source_indicator import INDICATOR_KINDS
+
+            variation_by_name(self.indicators.variation, key="indicators.variation")
+            for kind in self.indicators.kinds:
+                if kind not in INDICATOR_KINDS[1:]:
+                    raise BadInput(f"indicators.kinds: got {kind!r}, expected "
+                                   f"{' or '.join(INDICATOR_KINDS[1:])}")
+            self.indicators.strategies = _names("indicators.strategies",
+                                                self.indicators.strategies, study_arm)
         if self.chain.variations:
             self.chain.variations = [str(v) for v in self.chain.variations]
             for name in self.chain.variations:

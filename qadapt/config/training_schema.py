@@ -154,6 +154,11 @@ class FinetuneJob(TrainingRunSettings):
 
     ``share`` is the share of each batch drawn from the new data (the rest from the prior
     data); ``share=1`` trains on the new data alone (then ``prior`` may be omitted).
+    ``indicator``: "none", "flag" (a column, 0 on prior rows and 1 on new ones) or
+    "per_source" (one column per dataset) appended to observations so the Q-function can
+    tell the worlds apart; acting (evaluation, and later collection with the checkpoint)
+    feeds the new data's columns. A base trained without one starts with zero weights on
+    the new columns.
     The network's form comes from the base checkpoint, so every strategy trains the same
     architecture.
     """
@@ -164,6 +169,7 @@ class FinetuneJob(TrainingRunSettings):
     new: Any = "???"
     share: float = 0.5
     init: InitSettings = field(default_factory=InitSettings)
+    indicator: str = "none"
 
     def __post_init__(self) -> None:
         super().__post_init__()
@@ -177,6 +183,11 @@ class FinetuneJob(TrainingRunSettings):
         else:
             self.prior = [] if self.prior is None else _paths("prior", self.prior)
         self.init.check_run(self.learner.anchor_weight, has_prior=bool(self.prior))
+        from qadapt.learner.source_indicator import INDICATOR_KINDS
+
+        if self.indicator not in INDICATOR_KINDS:
+            raise BadInput(f"indicator: got {self.indicator!r}, expected one of "
+                           f"{', '.join(INDICATOR_KINDS)}")
 
 
 TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {

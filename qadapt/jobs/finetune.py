@@ -27,6 +27,7 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     from qadapt.learner.assembly import new_critics, observation_statistics
     from qadapt.learner.init import InitContext, init_strategy
     from qadapt.learner.loading import resolve_checkpoint
+    from qadapt.learner.source_indicator import TaggedDataset
     from qadapt.nets import QNetworkConfig
 
     torch.set_num_threads(cfg.threads)
@@ -41,6 +42,9 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     base = load_checkpoint(base_path, expect_observation_space=new[0].observation_space,
                            expect_action_space=new[0].action_space, what="dataset")
     network_config = QNetworkConfig.from_dict(base.metadata.network["q_network"])
+    indicator, base_weights = _indicator_and_weights(cfg, base, str(base_path), len(prior),
+                                                     len(new), int(new[0].obs_dim))
+    width = 0 if indicator is None else indicator.width
     if prior:
         shares = [(1.0 - cfg.share) / len(prior)] * len(prior) + [cfg.share / len(new)] * len(new)
     else:
@@ -50,11 +54,13 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     def make_critics(arrays):
         # A strategy that keeps the base's normalisation gets it with the base weights.
         statistics = None if strategy.uses_base_statistics else observation_statistics(arrays)
-        critics = new_critics(int(new[0].obs_dim), act_space.low, act_space.high,
+        critics = new_critics(int(new[0].obs_dim) + width, act_space.low, act_space.high,
                               network_config, seed=cfg.seed, statistics=statistics)
+        tagged_prior = prior if indicator is None else [
+            TaggedDataset(d, indicator.values[i]) for i, d in enumerate(prior)]
         outcome = strategy.initialise(InitContext(
-            critics=critics, base_weights=base.weights, where=str(base_path), prior=prior,
-            gamma=cfg.learner.gamma, seed=cfg.seed))
+            critics=critics, base_weights=base_weights, where=str(base_path),
+            prior=tagged_prior, gamma=cfg.learner.gamma, seed=cfg.seed))
         # The third item is the run's record of how its critics started.
         return critics, outcome.anchor, {**strategy.describe(), **outcome.report}
 
@@ -67,12 +73,32 @@ def run_finetune(cfg: FinetuneJob) -> dict:
         make_critics=make_critics, settings=settings, steps=cfg.steps,
         checkpoint_every=cfg.checkpoint_every, log_every=cfg.log_every,
         progress=cfg.progress, memory_limit_mb=cfg.memory_limit_mb,
-        parent={"path": str(base_path), "sha256": base.identity},
+        parent={"path": str(base_path), "sha256": base.identity}, indicator=indicator,
     )
     print(f"finetune ({strategy.name}): {summary['steps']} gradient steps; best greedy success "
           f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")
     return summary
+
+
+def _indicator_and_weights(cfg: FinetuneJob, base, where: str, n_prior: int, n_new: int,
+                           obs_dim: int):
+    """The run's source indicator (or None) and the base weights widened to its columns
+    (zero weights for new columns: the widened base computes exactly the base's Q)."""
+    from qadapt.errors import BadInput
+    from qadapt.learner.source_indicator import SourceIndicator, widen_observation_input
+
+    indicator = SourceIndicator.for_sources(cfg.indicator, n_prior, n_new)
+    base_indicator = SourceIndicator.from_json(base.metadata.network.get("source_indicator"),
+                                               where)
+    base_width = 0 if base_indicator is None else base_indicator.width
+    width = 0 if indicator is None else indicator.width
+    if width < base_width:
+        raise BadInput(f"indicator: {where} was trained with a {base_width}-column source "
+                       f"indicator ({base_indicator.kind}); this run's indicator={cfg.indicator}"
+                       f" has {width} columns; use indicator={base_indicator.kind}")
+    return indicator, widen_observation_input(base.weights, obs_dim + base_width,
+                                              width - base_width)
 
 
 def finetune_job(cfg: FinetuneJob) -> int:

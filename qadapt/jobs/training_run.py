@@ -50,7 +50,7 @@ def build_maximizer(settings: MaximizerSettings, action_space):
         raise BadInput(f"maximizer.{err}") from err
 
 
-def make_evaluator(settings: EvalSettings, maximizer, dataset):
+def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=None):
     """A GreedyEvaluator on the configured env, refusing one whose spaces differ from the
     training data's."""
     if settings.every == 0:
@@ -71,7 +71,8 @@ def make_evaluator(settings: EvalSettings, maximizer, dataset):
     probe = make(1)
     check_spaces(dataset, probe.single_observation_space, probe.single_action_space,
                  what=f"evaluation env {name}")
-    return GreedyEvaluator(make, maximizer, settings.episodes, settings.seed)
+    return GreedyEvaluator(make, maximizer, settings.episodes, settings.seed,
+                           acting_columns=acting_columns)
 
 
 def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str, Any]) -> None:
@@ -115,6 +116,7 @@ def run_training(
     progress: bool,
     memory_limit_mb: int | None,
     parent: dict[str, Any] | None = None,
+    indicator=None,
 ) -> dict[str, Any]:
     """Train on ``datasets`` and write checkpoints, summary.json and lineage.json in ``out``.
 
@@ -122,7 +124,9 @@ def run_training(
     weights for the L2 penalty, or None); it may return a third item, a JSON-able record of
     how the critics started (the init strategy and its settings), which summary.json,
     lineage.json and every checkpoint's metadata (``extra["initialisation"]``) then carry.
-    Returns the summary.
+    ``indicator`` (a learner.source_indicator.SourceIndicator, or None) appends each
+    source's columns to its observations (batches, cached targets, ``make_critics``'s
+    arrays) and the acting columns in evaluation; checkpoints record it. Returns the summary.
     """
     from qadapt.checkpoint import CheckpointMetadata, DatasetReference
     from qadapt.data import MixtureSampler
@@ -133,7 +137,13 @@ def run_training(
     first = datasets[0]
     obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()
     maximizer = build_maximizer(maximizer_settings, act_space)
-    arrays = [transition_arrays(d) for d in datasets]
+    if indicator is not None:
+        from qadapt.learner.source_indicator import TaggedDataset
+
+        arrays = [transition_arrays(TaggedDataset(d, indicator.values[i]))
+                  for i, d in enumerate(datasets)]
+    else:
+        arrays = [transition_arrays(d) for d in datasets]
     critics, anchor, *record = make_critics(arrays)
     initialisation = record[0] if record else None
     learner = FittedQLearner(critics, maximizer, learner_config, arrays, seed=seed,
@@ -141,7 +151,12 @@ def run_training(
     memory = None if memory_limit_mb is None else memory_limit_mb * 2**20
     sampler = MixtureSampler(datasets, shares=shares, batch_size=learner_config.batch_size,
                              seed=seed, memory_limit_bytes=memory)
-    evaluator = make_evaluator(eval_settings, maximizer, eval_dataset)
+    if indicator is not None:
+        from qadapt.learner.source_indicator import TaggedSampler
+
+        sampler = TaggedSampler(sampler, indicator)
+    evaluator = make_evaluator(eval_settings, maximizer, eval_dataset,
+                               acting_columns=None if indicator is None else indicator.acting)
     settings = {**settings, "datasets": [d.fingerprint for d in datasets],
                 "parent": None if parent is None else parent["sha256"]}
     digest = config_digest(settings)
@@ -149,7 +164,8 @@ def run_training(
     metadata = CheckpointMetadata(
         observation_space=obs_space, action_space=act_space,
         network={"q_network": network_config.to_dict(),
-                 "maximizer": maximizer_settings.as_kwargs()},
+                 "maximizer": maximizer_settings.as_kwargs(),
+                 "source_indicator": None if indicator is None else indicator.to_json()},
         env_id=environment.id, env_kwargs=dict(environment.kwargs),
         gradient_step=0, config_digest=digest,
         parent_checkpoint=None if parent is None else parent["sha256"],

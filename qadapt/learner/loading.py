@@ -16,6 +16,7 @@ import torch
 from qadapt.checkpoint import load_checkpoint
 from qadapt.errors import BadInput
 from qadapt.learner.policy import QPolicy
+from qadapt.learner.source_indicator import ActingTag, SourceIndicator
 from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import QNetworkConfig, build_q_network
 
@@ -41,7 +42,8 @@ def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
 
 def load_q_network(path: str | Path, observation_space=None, action_space=None,
                    what: str = "environment"):
-    """(network, loaded checkpoint): the checkpoint's acting network in eval mode."""
+    """(network, loaded checkpoint): the checkpoint's acting network in eval mode; one
+    trained with a source indicator appends its acting columns to raw observations."""
     loaded = load_checkpoint(path, expect_observation_space=observation_space,
                              expect_action_space=action_space, what=what)
     meta = loaded.metadata
@@ -51,7 +53,9 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
     space = meta.action_space
     low = torch.as_tensor(space.low, dtype=torch.float32)
     high = torch.as_tensor(space.high, dtype=torch.float32)
-    network = build_q_network(int(meta.observation_space.shape[0]), low, high,
+    indicator = SourceIndicator.from_json(meta.network.get("source_indicator"), str(path))
+    width = 0 if indicator is None else indicator.width
+    network = build_q_network(int(meta.observation_space.shape[0]) + width, low, high,
                               QNetworkConfig.from_dict(meta.network["q_network"]))
     try:
         network.load_state_dict(acting)
@@ -60,6 +64,8 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
         detail = " ".join(line.strip() for line in str(err).splitlines()[:2])
         raise BadInput(f"{path}: weights do not fit the recorded network: "
                        f"{detail[:300]}") from err
+    if indicator is not None:  # acts on raw observations, feeding the new data's columns
+        network = ActingTag(network, indicator.acting)
     network.requires_grad_(False).eval()
     return network, loaded
 

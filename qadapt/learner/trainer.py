@@ -74,7 +74,7 @@ class GreedyEvaluator:
         maximizer: ActionMaximizer,
         episodes: int,
         seed: int,
-        observation_hook: Callable | None = None,
+        acting_columns: tuple[float, ...] | None = None,
     ) -> None:
         if isinstance(episodes, bool) or not isinstance(episodes, int) or episodes < 1:
             raise BadInput(f"eval episodes: got {episodes!r}, expected a positive integer")
@@ -82,11 +82,16 @@ class GreedyEvaluator:
         self.maximizer = maximizer
         self.episodes = episodes
         self.seed = seed
+        self.acting_columns = acting_columns
         self._envs = None
 
     def __call__(self, network: torch.nn.Module) -> EpisodeResults:
         if self._envs is None:
             self._envs = self.make_env(self.episodes)
+        if self.acting_columns is not None:  # trained with a source indicator
+            from qadapt.learner.source_indicator import ActingTag
+
+            network = ActingTag(network, self.acting_columns)
         policy = QPolicy(network, self.maximizer, seed=self.seed)
         return run_episodes(self._envs, policy, seed=self.seed)
 

@@ -24,6 +24,7 @@ from qadapt.study.arms import study_arm
 from qadapt.study.plan import Cell, StudyPlan
 
 ROWS_NAME = "rows.json"
+FAILED_NAME = "failed.json"
 BASE_CELL = "none"
 
 
@@ -89,13 +90,14 @@ def _finetune_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
     arm = study_arm(cell.arm)
     run_dir = where / "run"
     overrides = [*_common_overrides(plan, cell, run_dir), _quoted("new", cell.data),
-                 *arm.finetune_overrides(cell.share)]
+                 *arm.finetune_overrides(cell.share), f"indicator={cell.indicator}"]
     if arm.uses_prior:
         overrides.append(_quoted("prior", plan.prior))
     register_training_schemas()
     summary = run_finetune(compose_typed("finetune", overrides, FinetuneJob, key=cell.id))
     checkpoint = summary["checkpoint"]
     return [_row(cell, steps=summary["steps"], curve=summary["evaluations"],
+                 indicator=cell.indicator != "none",
                  evaluations=_evaluate(checkpoint, [BASE_CELL, cell.variation], plan.settings),
                  checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(run_dir / "logs"))]
 
@@ -144,6 +146,7 @@ def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
         print(f"cell {cell.id}: finished earlier, skipped")
         return json.loads(rows_path.read_text())
     where.mkdir(parents=True, exist_ok=True)
+    (where / FAILED_NAME).unlink(missing_ok=True)  # a retry
     if cell.kind == "base":
         rows = _base_rows(plan, cell)
     elif cell.kind == "finetune":
@@ -156,10 +159,23 @@ def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
 
 
 def cell_job(cfg: CellJob) -> int:
+    """Run the cell; a cell that fails (bad input, divergence) records why in
+    ``failed.json`` and lets the rest of the sweep go on; the study reports it."""
     import torch
 
+    from qadapt.data.files import write_text_durably
+    from qadapt.errors import TrainingFailed
+
     torch.set_num_threads(1)  # cells run side by side; one thread each
-    run_cell(cfg.study, cfg.cell)
+    try:
+        run_cell(cfg.study, cfg.cell)
+    except (BadInput, TrainingFailed) as err:
+        where = cell_dir(Path(cfg.study), cfg.cell)
+        where.mkdir(parents=True, exist_ok=True)
+        message = str(err).splitlines()[0] if str(err) else type(err).__name__
+        write_text_durably(where / FAILED_NAME, json.dumps({"cell": cfg.cell,
+                                                            "error": message}))
+        print(f"cell {cfg.cell}: failed: {message}")
     return 0
 
 

@@ -55,6 +55,7 @@ class Cell:
     share: float = 0.0
     data: str | None = None
     variations: tuple[str, ...] = ()
+    indicator: str = "none"
 
 
 @dataclasses.dataclass
@@ -88,7 +89,8 @@ class StudyPlan:
     def from_json(cls, value: dict[str, Any]) -> StudyPlan:
         return cls(value["base"], value["prior"], value["settings"],
                    [DataRequest(**d) for d in value["data"]],
-                   [Cell(**{**c, "variations": tuple(c["variations"])}) for c in value["cells"]])
+                   [Cell(**{**c, "variations": tuple(c["variations"])})
+                    for c in value["cells"]])
 
     @classmethod
     def read(cls, study_dir: Path) -> StudyPlan:
@@ -114,16 +116,18 @@ class StudyPlan:
 
 
 def _finetune_cell(cfg, cells: dict, data: dict, study_dir: Path, arm_name: str,
-                   variation: str, episodes: int, share: float, seed: int) -> None:
+                   variation: str, episodes: int, share: float, seed: int,
+                   indicator: str = "none") -> None:
     arm = study_arm(arm_name)
     share = share if arm.uses_prior else 1.0
     key = (variation, episodes, seed)
     if key not in data:
         data[key] = DataRequest(variation, episodes, seed,
                                 str(study_dir / "data" / f"{variation}__n{episodes}__seed{seed}"))
-    cell_id = f"{arm.name}__{variation}__n{episodes}__share{share:g}__seed{seed}"
+    tag = "" if indicator == "none" else f"__{indicator}"
+    cell_id = f"{arm.name}__{variation}__n{episodes}__share{share:g}{tag}__seed{seed}"
     cells.setdefault(cell_id, Cell(cell_id, "finetune", arm.name, variation, seed, episodes,
-                                   share, data[key].path))
+                                   share, data[key].path, indicator=indicator))
 
 
 def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
@@ -149,12 +153,19 @@ def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
             for seed in cfg.seeds:
                 _finetune_cell(cfg, cells, data, study_dir, arm, cfg.shares.variation,
                                cfg.episodes, float(share), seed)
+    for kind in cfg.indicators.kinds:
+        for arm in cfg.indicators.strategies:
+            if not study_arm(arm).uses_prior:
+                continue  # one source: an indicator would be a constant column
+            for seed in cfg.seeds:
+                _finetune_cell(cfg, cells, data, study_dir, arm, cfg.indicators.variation,
+                               cfg.episodes, cfg.share, seed, indicator=kind)
     for arm in cfg.chain.strategies if cfg.chain.variations else []:
         for seed in cfg.seeds:
             cell_id = f"chain__{arm}__seed{seed}"
             cells[cell_id] = Cell(cell_id, "chain", arm, None, seed, cfg.episodes, cfg.share,
                                   None, tuple(cfg.chain.variations))
     settings = {k: plain(v) for k, v in dataclasses.asdict(cfg).items()
-                if k not in ("out", "launcher", "launcher_overrides", "report_reps", "level",
+                if k not in ("out", "launcher_overrides", "report_reps", "level",
                               "filmstrip_episodes")}
     return StudyPlan(str(base), str(prior), settings, list(data.values()), list(cells.values()))

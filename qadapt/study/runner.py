@@ -22,7 +22,7 @@ from pathlib import Path
 
 from qadapt.config.study_schema import StudyJob
 from qadapt.errors import TrainingFailed
-from qadapt.study.cells import ROWS_NAME, _quoted, cell_dir
+from qadapt.study.cells import FAILED_NAME, ROWS_NAME, _quoted, cell_dir
 from qadapt.study.plan import StudyPlan, build_plan
 
 RESULTS_NAME = "results.jsonl"
@@ -79,14 +79,22 @@ def _collect_new_data(cfg: StudyJob, plan: StudyPlan) -> None:
                   "num_envs=128"], Path(request.path))
 
 
+def _launcher_choice() -> str:
+    """The ``launcher`` group option this study was started with (configs/launcher/)."""
+    from hydra.core.hydra_config import HydraConfig
+
+    return HydraConfig.get().runtime.choices.get("launcher") or "local"
+
+
 def _launch(cfg: StudyJob, study_dir: Path, pending: list[str]) -> int:
     """Run the pending cells as one Hydra multirun sweep; its exit status."""
+    launcher = _launcher_choice()
     sweep = study_dir / "sweeps" / time.strftime("%Y%m%d-%H%M%S")
     command = [sys.executable, "-m", "qadapt.cli", "cell", "--multirun",
                _quoted("study", str(study_dir)), f"cell={','.join(pending)}",
-               f"launcher={cfg.launcher}", _quoted("hydra.sweep.dir", str(sweep)),
+               f"launcher={launcher}", _quoted("hydra.sweep.dir", str(sweep)),
                *cfg.launcher_overrides]
-    print(f"study: running {len(pending)} cells with launcher={cfg.launcher} "
+    print(f"study: running {len(pending)} cells with launcher={launcher} "
           f"(logs in {sweep})", flush=True)
     return subprocess.run(command).returncode
 
@@ -174,8 +182,11 @@ def study_job(cfg: StudyJob) -> int:
           f"{results}; report {report}")
     print(f"outputs written to {study_dir}")
     if missing:
+        failed = cell_dir(study_dir, missing[0]) / FAILED_NAME
+        why = json.loads(failed.read_text())["error"] if failed.exists() else "see sweeps/"
         raise TrainingFailed(f"{len(missing)} of {len(plan.cells)} cells did not finish "
-                             f"(first: {missing[0]}); re-run the same command to retry them")
+                             f"(first: {missing[0]}: {why}); re-run the same command to retry "
+                             "them")
     return 0
 
 

@@ -59,3 +59,17 @@ def test_a_path_that_merely_contains_the_word_is_accepted(tmp_path):
     done = run_in_process(argv, tmp_path, tmp_path / "hydra")
     assert done.code == 0, done.stderr
     assert (out / "manifest.json").exists()
+
+
+@pytest.mark.parametrize("env_id", ["os:system", "qadapt.cli:main"])
+def test_env_ids_that_would_import_a_module_are_refused(env_id, tmp_path):
+    # gymnasium's make() imports the part before ":" (gymnasium/envs/registration.py); an id
+    # from a config or from a dataset's manifest must not get that far.
+    from qadapt.config.schema import EnvConfig
+    from qadapt.envs import make_recorded_env
+    from qadapt.errors import BadInput
+
+    with pytest.raises(BadInput, match="env.id"):
+        EnvConfig(id=env_id)
+    with pytest.raises(BadInput, match="env.id"):
+        make_recorded_env({"id": env_id, "kwargs": {}, "wrappers": []}, 1)
