@@ -186,10 +186,29 @@ def improvement_section(view: StudyView) -> Section | None:
     return Section("Probability of improvement", blocks)
 
 
-def _sweep_counts(view: StudyView, strategy: str, same) -> list:
+def _swept_variations(view: StudyView, dimension) -> set[str] | None:
+    """Variations on which the headline strategy's runs take two or more values of
+    ``dimension`` (the sweep's variations), or None when nothing was swept: a sweep's points
+    are then compared on the same variations only."""
+    values: dict[str, set] = {}
+    for row in view.standalone:
+        if row.strategy == view.headline and row.trained_evaluation() is not None:
+            values.setdefault(row.variation, set()).add(dimension(row))
+    swept = {variation for variation, seen in values.items() if len(seen) > 1}
+    return swept or None
+
+
+def _sweep_counts(view: StudyView, strategy: str, same, variations=None) -> list:
     setting = view.settings[strategy]
     return [row for row in view.standalone if row.strategy == strategy
-            and same(Setting.of(row), setting) and row.trained_evaluation() is not None]
+            and same(Setting.of(row), setting) and row.trained_evaluation() is not None
+            and (variations is None or row.variation in variations)]
+
+
+def _pooled_over(variations: set[str] | None) -> str:
+    if variations is None:
+        return "counts pooled over seeds and variations"
+    return f"counts pooled over seeds on the swept variation ({', '.join(sorted(variations))})"
 
 
 def budget_section(view: StudyView) -> Section | None:
@@ -201,8 +220,9 @@ def budget_section(view: StudyView) -> Section | None:
             headline.share, headline.indicator, headline.steps)
 
     tables, lines, rows_out = {}, [], []
+    variations = _swept_variations(view, lambda row: row.new_episodes)
     for strategy in view.settings:
-        runs = _sweep_counts(view, strategy, same)
+        runs = _sweep_counts(view, strategy, same, variations)
         counts = [(r.new_episodes, r.trained_evaluation().successes,
                    r.trained_evaluation().episodes) for r in runs]
         if not counts:
@@ -228,8 +248,9 @@ def budget_section(view: StudyView) -> Section | None:
                     f"interval clears {percent(view.level)} is {answer} new episodes.")
     blocks = [
         Paragraph("Success on the trained-for variation against the number of new episodes, "
-                  "counts pooled over seeds and variations at each budget (other settings as in "
-                  "the headline runs), with 95% Wilson intervals."),
+                  f"{_pooled_over(variations)} at each budget (other settings as in the "
+                  "headline runs; the base checkpoint is the point at 0), with 95% Wilson "
+                  "intervals."),
         Paragraph(sentence),
         Table(("strategy", "new episodes", "pooled successes", "success [95% Wilson]"),
               tuple(rows_out), caption="Success by data budget"),
@@ -250,8 +271,9 @@ def share_section(view: StudyView) -> Section | None:
         return (setting.new_episodes, setting.steps) == (headline.new_episodes, headline.steps)
 
     lines, rows_out, several = [], [], False
+    variations = _swept_variations(view, lambda row: (row.share, row.indicator))
     for strategy in view.settings:
-        runs = _sweep_counts(view, strategy, same)
+        runs = _sweep_counts(view, strategy, same, variations)
         for indicator in sorted({r.indicator for r in runs}):
             group = [r for r in runs if r.indicator == indicator]
             shares = np.array([r.share for r in group])
@@ -272,8 +294,7 @@ def share_section(view: StudyView) -> Section | None:
         return None
     return Section("New-data share", [
         Paragraph("Success on the trained-for variation against the share of each batch drawn "
-                  "from the new data, counts pooled over seeds and variations, 95% Wilson "
-                  "intervals."),
+                  f"from the new data, {_pooled_over(variations)}, 95% Wilson intervals."),
         Table(("strategy", "share", "pooled successes", "success [95% Wilson]"),
               tuple(rows_out), caption="Success by new-data share"),
         Figure(line_panels([Panel("Success against new-data share", "share of new data",

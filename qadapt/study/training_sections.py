@@ -26,6 +26,8 @@ from qadapt.study.view import StudyView, percent
 
 PLATEAU_SHARE = 0.95
 PLATEAU_TAIL = 0.2
+# A plateau below this is "has not started learning", not a level to reach.
+NO_LEARNING = 0.01
 LOG_TAG_WORDS = ("loss", "q_mean", "success")
 
 
@@ -40,9 +42,9 @@ def _chains(view: StudyView) -> tuple[dict, list[str]]:
     for (strategy, seed), rows in sorted(by_run.items()):
         rows.sort(key=lambda r: r.chain_step)
         steps = [r.chain_step for r in rows]
-        if steps != list(range(len(rows))):
-            notes.append(f"{strategy} seed {seed}: chain steps {steps} are not 0, 1, ... "
-                         "without gaps or repeats; left out")
+        if steps != list(range(steps[0], steps[0] + len(rows))):
+            notes.append(f"{strategy} seed {seed}: chain steps {steps} are not consecutive "
+                         "(gaps or repeats); left out")
             continue
         groups.setdefault((strategy, tuple(r.variation for r in rows)), []).append(rows)
     return groups, notes
@@ -163,6 +165,12 @@ def curve_section(view: StudyView) -> Section | None:
         mine = reach[headline]
         for other, theirs in reach.items():
             if other == headline:
+                continue
+            if theirs.plateau < NO_LEARNING:
+                blocks.append(Paragraph(
+                    f"{other}'s success stayed below {percent(NO_LEARNING)} to the end of its "
+                    "runs: it had no plateau yet, so no ratio of steps is defined (run it "
+                    "longer)."))
                 continue
             if theirs.step == 0:
                 blocks.append(Paragraph(f"{other} is at its plateau from step 0, so no ratio of "
