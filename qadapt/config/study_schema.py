@@ -36,12 +36,14 @@ def _positive(key: str, value) -> None:
 
 @dataclass
 class BasePlan:
-    """Prior data from the scripted picker in the unperturbed cell, then pretraining."""
+    """Prior data from the scripted picker in the unperturbed cell, then pretraining
+    (``pretrain``: extra ``qadapt pretrain`` overrides, e.g. ``learner.refresh_every=100``)."""
 
     episodes: int = 2000
     noise: float = 0.15
     seed: int = 0
     pretrain_steps: int = 4000
+    pretrain: list[str] = field(default_factory=list)
 
     def __post_init__(self) -> None:
         _positive("make_base.episodes", self.episodes)

@@ -66,7 +66,8 @@ def _make_base(cfg: StudyJob, study_dir: Path) -> tuple[str, str]:
         register_training_schemas()
         pretrain_job(compose_typed("pretrain", [
             _quoted("data", str(prior)), f"steps={plan.pretrain_steps}", f"seed={plan.seed}",
-            _quoted("out", str(base)), "progress=false", "threads=1"], PretrainJob,
+            _quoted("out", str(base)), "progress=false", "threads=1", *plan.pretrain],
+            PretrainJob,
             key="make_base"))
     return str(base), str(prior)
 
