@@ -185,11 +185,24 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = _OneLineParser(
         prog="qadapt inspect",
         description="Summarise a replay dataset: counts, returns, success, action ranges, "
-        "provenance and checksum status.",
+        "provenance and checksum status; for a checkpoint, run or chain directory, print its "
+        "lineage (parents and datasets by hash) as a tree.",
     )
-    parser.add_argument("path", metavar="PATH", help="dataset directory")
+    parser.add_argument("path", metavar="PATH",
+                        help="dataset, checkpoint, run or chain directory")
     parser.add_argument("--json", action="store_true", help="print the report as one JSON object")
     args = parser.parse_args(list(sys.argv[1:] if argv is None else argv))
+    from qadapt.checkpoint.lineage import is_lineage_path, lineage_record, lineage_text
+
+    if is_lineage_path(args.path):  # a checkpoint, run or chain: its lineage as a tree
+        try:
+            text = (json.dumps(lineage_record(args.path), sort_keys=True) if args.json
+                    else lineage_text(args.path))
+        except BadInput as err:
+            print(f"qadapt inspect: {err}", file=sys.stderr)
+            return 2
+        print(text)
+        return 0
     try:
         report = inspect_dataset(args.path)
     except BadInput as err:

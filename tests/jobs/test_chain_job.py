@@ -63,6 +63,13 @@ def test_chain_records_each_step_with_lineage_and_evaluations(base, prior, tmp_p
     manifest = json.loads((Path(steps[1]["dataset"]["path"]) / "manifest.json").read_text())
     assert "drive_lag" in manifest["environment"]["kwargs"]["perturbations"]
 
+    # qadapt inspect prints the lineage: step 2 <- step 1 <- base, each with its data.
+    tree = _run([sys.executable, "-m", "qadapt.cli", "inspect", str(out)], tmp_path)
+    assert tree.returncode == 0, tree.stderr
+    assert "2 of 2 steps finished (finger_offset -> drive_lag)" in tree.stdout
+    assert tree.stdout.count("parent: checkpoint") == 2
+    assert str(base) in tree.stdout and steps[0]["dataset"]["sha256"][:12] in tree.stdout
+
     # A finished chain re-run does no work and changes nothing.
     before = tree_fingerprint(out)
     again = _run(_chain_args(base, prior, out), tmp_path)
