@@ -161,6 +161,16 @@ class ActingTag(nn.Module):
         self.action_dim = network.action_dim
         self.config = network.config
 
+    def __getattr__(self, name: str):
+        # Parameters, buffers and submodules first (nn.Module), then the wrapped network's
+        # attributes (action bounds, normaliser, ...), so a policy can use either alike.
+        try:
+            return super().__getattr__(name)
+        except AttributeError:
+            if name == "network":
+                raise
+            return getattr(self.network, name)
+
     def encode(self, obs: torch.Tensor) -> torch.Tensor:
         return self.network.encode(with_columns(obs, self.acting))
 

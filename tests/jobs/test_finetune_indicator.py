@@ -16,8 +16,8 @@ def test_finetune_with_a_flag_starts_exactly_at_the_base_and_records_it(
 
     base, new = base_and_new
     out = tmp_path / "flag"
-    done = _finetune(prior, base, new, out, "indicator=flag", "steps=1", "eval.every=0",
-                     "checkpoint_every=1", "learner.learning_rate=1e-12")
+    done = _finetune(prior, base, new, out, "indicator=flag", "steps=2", "eval.every=1",
+                     "eval.episodes=4", "checkpoint_every=1", "learner.learning_rate=1e-12")
     assert done.returncode == 0, done.stderr
     result = load_checkpoint(out / "checkpoints" / "last")
     assert result.metadata.network["source_indicator"]["acting"] == [1.0]
@@ -31,6 +31,14 @@ def test_finetune_with_a_flag_starts_exactly_at_the_base_and_records_it(
     actions = torch.rand(6, plain.action_dim) * 2 - 1
     assert tagged.obs_dim == plain.obs_dim
     assert torch.allclose(tagged(obs, actions), plain(obs, actions), atol=1e-5)
+
+    # Its greedy policy runs in an env that knows nothing of indicators.
+    from .conftest import run_qadapt
+
+    evaluated = run_qadapt("evaluate", f"ckpt={out}", "variation=finger_length", "episodes=4",
+                           f"out={tmp_path / 'eval'}", cwd=tmp_path)
+    assert evaluated.returncode == 0, evaluated.stderr
+    assert json.loads((tmp_path / "eval" / "evaluation.json").read_text())
 
     # A run from it must keep an indicator; without one it stops before any work.
     again = _finetune(prior, out, new, tmp_path / "none", "indicator=none")

@@ -42,6 +42,15 @@ def test_widened_base_computes_exactly_the_base_whatever_the_new_columns_hold(fo
                               atol=1e-6)
     tagged = ActingTag(wide, (1.0, 0.0))
     assert torch.allclose(tagged(obs, actions), base(obs, actions), atol=1e-6)
+    # A policy over the tagged network acts on raw observations like one over the base.
+    from qadapt.learner.policy import QPolicy
+    from qadapt.maximize import CrossEntropyMaximizer
+
+    cem = CrossEntropyMaximizer(low, high, samples=16, elites=4, iterations=2)
+    assert torch.equal(tagged.action_half_range, base.action_half_range)
+    acted = QPolicy(tagged, cem, seed=3).act(obs.numpy())
+    assert acted.shape == (10, 2)
+    assert (QPolicy(base, cem, seed=3).act(obs.numpy()) == acted).all()
 
 
 def test_tagged_batches_carry_their_sources_columns():
