@@ -127,8 +127,9 @@ def _short_table(cfg: StudyJob, rows: list[dict]) -> str:
     pooled: dict[tuple[str, str], list[int]] = {}
     for row in rows:
         arm = STUDY_ARMS.get(row["strategy"])
-        headline = arm is not None and row["new_episodes"] == cfg.episodes and row["share"] == (
-            cfg.share if arm.uses_prior else 1.0)
+        headline = (arm is not None and row["new_episodes"] == cfg.episodes
+                    and not row["indicator"]
+                    and row["share"] == (cfg.share if arm.uses_prior else 1.0))
         if row["chain_step"] is not None or not (headline or row["strategy"] == "base"):
             continue
         for evaluation in row["evaluations"]:
