@@ -5,10 +5,13 @@ Holds:
     staging_directory -- a new hidden sibling directory of the target to fill first.
     publish_directory -- rename a filled staging directory onto the target path (replacing an
         existing one only when asked), then flush the parent directory.
+    restore_replaced -- put back the previous contents of a target a replacement left absent.
 
 Replacing is two renames (old aside, new in) followed by deleting the old copy; between the
 renames the target path is briefly absent, but never half-written. If the process dies in
-that instant, the previous contents are in the sibling ``.<name>.replaced-*``.
+that instant, the previous contents are in the sibling ``.<name>.replaced-*``, and
+``restore_replaced`` puts them back (a resuming run calls it before looking for its
+checkpoints).
 """
 
 from __future__ import annotations
@@ -66,3 +69,26 @@ def publish_directory(staging: Path, target: Path, *, replace: bool) -> None:
     except OSError as err:
         # The new checkpoint is in place; a leftover copy of the old one is only clutter.
         warnings.warn(f"could not delete the replaced checkpoint at {aside}: {err}", stacklevel=2)
+
+
+def restore_replaced(target: Path) -> bool:
+    """If ``target`` is absent but a replacement had moved its previous contents aside (the
+    process died between the two renames), rename them back; True when it did.
+
+    An aside was a published, hence complete, checkpoint; as a safeguard only one holding
+    ``checkpoint.json`` is restored (the newest). Asides of a target that exists are leftovers
+    of a replacement that finished; they are removed.
+    """
+    target = Path(target)
+    asides = sorted(target.parent.glob(f".{target.name}.replaced-*"),
+                    key=lambda p: p.stat().st_mtime) if target.parent.is_dir() else []
+    if target.exists():
+        for aside in asides:
+            shutil.rmtree(aside, ignore_errors=True)
+        return False
+    complete = [a for a in asides if (a / "checkpoint.json").is_file()]
+    if not complete:
+        return False
+    os.rename(complete[-1], target)
+    fsync_directory(target.parent)
+    return True

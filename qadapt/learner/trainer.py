@@ -188,6 +188,11 @@ class Trainer:
         self.outcome.best_path = self.best_path
 
     def _resume(self) -> None:
+        from qadapt.checkpoint.durable import restore_replaced
+
+        # A kill in the middle of replacing a checkpoint leaves the previous one aside.
+        restore_replaced(self.last_path)
+        restore_replaced(self.best_path)
         if not self.last_path.exists():
             return
         loaded = load_checkpoint(self.last_path, load_training_state=True)

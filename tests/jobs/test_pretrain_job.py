@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import signal
 import subprocess
@@ -40,6 +41,31 @@ def test_same_config_and_seed_give_identical_checkpoint_bytes(prior, tmp_path):
     assert {"checkpoints/last/weights.safetensors", "checkpoints/best/weights.safetensors"} <= set(
         _digests(a))
     assert (a / "summary.json").exists() and (a / "lineage.json").exists()
+
+
+def test_a_kill_between_the_renames_of_a_replacement_loses_nothing(prior, tmp_path):
+    # Replacing checkpoints/last renames the old copy to .last.replaced-* and then the new
+    # one in; a kill in between leaves no checkpoints/last. The resumed run puts the old copy
+    # back and ends with the bytes of an uninterrupted run.
+    straight, killed = tmp_path / "straight", tmp_path / "killed"
+    assert _run(_args(prior, straight), tmp_path).returncode == 0
+    proc = subprocess.Popen(_args(prior, killed), cwd=tmp_path, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+    marker = killed / "checkpoints" / "last" / "checkpoint.json"
+    deadline = time.monotonic() + 120
+    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    last = killed / "checkpoints" / "last"
+    last.rename(last.parent / ".last.replaced-k1ll")
+    resumed = _run(_args(prior, killed), tmp_path)
+    assert resumed.returncode == 0, resumed.stderr
+    assert not list(last.parent.glob(".last.replaced-*"))
+    # It continued from the restored checkpoint, not from the start.
+    summary = json.loads((killed / "summary.json").read_text())
+    assert summary["resumed_from_step"] > 0
+    assert _digests(killed) == _digests(straight)
 
 
 def test_killed_run_resumes_to_the_same_bytes(prior, tmp_path):
