@@ -8,12 +8,13 @@ Holds:
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from qadapt.config.compose import variation_by_name
-from qadapt.config.schema import EnvConfig
+from qadapt.config.schema import EnvConfig, _positive_int
 from qadapt.config.training_schema import FinetuneJob, TrainingRunSettings, _paths
 from qadapt.errors import BadInput
 from qadapt.learner.init.settings import InitSettings
@@ -87,11 +88,8 @@ class ChainJob(TrainingRunSettings):
         self.variations = [str(v) for v in self.variations]
         for name in self.variations:
             variation_by_name(name)
-        if isinstance(self.episodes, bool) or self.episodes < 1:
-            raise BadInput(f"episodes: got {self.episodes!r}, expected a positive integer")
-        if isinstance(self.eval_episodes, bool) or self.eval_episodes < 1:
-            raise BadInput(f"eval_episodes: got {self.eval_episodes!r}, expected a positive "
-                           "integer")
+        _positive_int("episodes", self.episodes)
+        _positive_int("eval_episodes", self.eval_episodes)
         if not 0.0 < self.share < 1.0:
             raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1): a chain "
                            "trains on prior and new data")
@@ -99,13 +97,10 @@ class ChainJob(TrainingRunSettings):
     def finetune_settings(self, *, base: str, prior: list[str], new: list[str], out: str,
                           seed: int) -> FinetuneJob:
         """The fine-tuning job of one chain step (validated like ``qadapt finetune``'s)."""
-        return FinetuneJob(
-            steps=self.steps, seed=seed, out=out, checkpoint_every=self.checkpoint_every,
-            log_every=self.log_every, memory_limit_mb=self.memory_limit_mb,
-            threads=self.threads, progress=self.progress, maximizer=self.maximizer,
-            learner=self.learner, eval=self.eval, base=base, prior=prior, new=new,
-            share=self.share, init=self.init,
-        )
+        # Every setting training jobs share carries over as it is; only seed and out differ.
+        shared = {f.name: getattr(self, f.name) for f in dataclasses.fields(TrainingRunSettings)}
+        return FinetuneJob(**{**shared, "seed": seed, "out": out}, base=base, prior=prior,
+                           new=new, share=self.share, init=self.init)
 
 
 CHAIN_SCHEMAS: dict[str, tuple[str | None, type]] = {

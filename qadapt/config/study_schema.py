@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from qadapt.config.compose import variation_by_name
+from qadapt.config.schema import _positive_int
 from qadapt.errors import BadInput
 from qadapt.study.arms import study_arm
 
@@ -27,11 +28,6 @@ def _names(key: str, values, check) -> list[str]:
     for value in values:
         check(value)
     return values
-
-
-def _positive(key: str, value) -> None:
-    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-        raise BadInput(f"{key}: got {value!r}, expected a positive integer")
 
 
 @dataclass
@@ -46,8 +42,8 @@ class BasePlan:
     pretrain: list[str] = field(default_factory=list)
 
     def __post_init__(self) -> None:
-        _positive("make_base.episodes", self.episodes)
-        _positive("make_base.pretrain_steps", self.pretrain_steps)
+        _positive_int("make_base.episodes", self.episodes)
+        _positive_int("make_base.pretrain_steps", self.pretrain_steps)
 
 
 @dataclass
@@ -132,9 +128,9 @@ class StudyJob:
         for seed in self.seeds:
             if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
                 raise BadInput(f"seeds: got {seed!r}, expected non-negative integers")
-        _positive("episodes", self.episodes)
-        _positive("steps", self.steps)
-        _positive("eval_episodes", self.eval_episodes)
+        _positive_int("episodes", self.episodes)
+        _positive_int("steps", self.steps)
+        _positive_int("eval_episodes", self.eval_episodes)
         if not 0.0 < self.share < 1.0:
             raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1)")
         if not 0.0 <= self.explore_noise <= 2.0:

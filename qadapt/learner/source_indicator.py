@@ -157,9 +157,7 @@ class ActingTag(nn.Module):
         super().__init__()
         self.network = network
         self.register_buffer("acting", torch.tensor(acting, dtype=torch.float32))
-        self.obs_dim = network.obs_dim - len(acting)
-        self.action_dim = network.action_dim
-        self.config = network.config
+        self.obs_dim = network.obs_dim - len(acting)  # what acting feeds: raw observations
 
     def __getattr__(self, name: str):
         # Parameters, buffers and submodules first (nn.Module), then the wrapped network's
@@ -173,12 +171,6 @@ class ActingTag(nn.Module):
 
     def encode(self, obs: torch.Tensor) -> torch.Tensor:
         return self.network.encode(with_columns(obs, self.acting))
-
-    def score(self, code: torch.Tensor, actions: torch.Tensor) -> torch.Tensor:
-        return self.network.score(code, actions)
-
-    def value(self, raw: torch.Tensor) -> torch.Tensor:
-        return self.network.value(raw)
 
     def forward(self, obs: torch.Tensor, actions: torch.Tensor) -> torch.Tensor:
         return self.score(self.encode(obs), actions[:, None, :])[:, 0]

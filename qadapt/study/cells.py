@@ -20,12 +20,12 @@ from typing import Any
 
 from qadapt.config.study_schema import CellJob
 from qadapt.errors import BadInput
+from qadapt.jobs.chain import BASE_CELL
 from qadapt.study.arms import study_arm
 from qadapt.study.plan import Cell, StudyPlan
 
 ROWS_NAME = "rows.json"
 FAILED_NAME = "failed.json"
-BASE_CELL = "none"
 
 
 def cell_dir(study_dir: Path, cell_id: str) -> Path:

@@ -115,7 +115,7 @@ class StudyPlan:
         write_text_durably(path, json.dumps(self.to_json(), indent=2, sort_keys=True))
 
 
-def _finetune_cell(cfg, cells: dict, data: dict, study_dir: Path, arm_name: str,
+def _finetune_cell(cells: dict, data: dict, study_dir: Path, arm_name: str,
                    variation: str, episodes: int, share: float, seed: int,
                    indicator: str = "none") -> None:
     arm = study_arm(arm_name)
@@ -139,26 +139,26 @@ def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
     for variation in cfg.variations:
         for arm in cfg.strategies:
             for seed in cfg.seeds:
-                _finetune_cell(cfg, cells, data, study_dir, arm, variation, cfg.episodes,
+                _finetune_cell(cells, data, study_dir, arm, variation, cfg.episodes,
                                cfg.share, seed)
     for episodes in cfg.budgets.values:
         for arm in cfg.budgets.strategies:
             for seed in cfg.seeds:
-                _finetune_cell(cfg, cells, data, study_dir, arm, cfg.budgets.variation,
+                _finetune_cell(cells, data, study_dir, arm, cfg.budgets.variation,
                                episodes, cfg.share, seed)
     for share in cfg.shares.values:
         for arm in cfg.shares.strategies:
             if not study_arm(arm).uses_prior:
                 continue  # a new-data-only arm has no share to sweep
             for seed in cfg.seeds:
-                _finetune_cell(cfg, cells, data, study_dir, arm, cfg.shares.variation,
+                _finetune_cell(cells, data, study_dir, arm, cfg.shares.variation,
                                cfg.episodes, float(share), seed)
     for kind in cfg.indicators.kinds:
         for arm in cfg.indicators.strategies:
             if not study_arm(arm).uses_prior:
                 continue  # one source: an indicator would be a constant column
             for seed in cfg.seeds:
-                _finetune_cell(cfg, cells, data, study_dir, arm, cfg.indicators.variation,
+                _finetune_cell(cells, data, study_dir, arm, cfg.indicators.variation,
                                cfg.episodes, cfg.share, seed, indicator=kind)
     for arm in cfg.chain.strategies if cfg.chain.variations else []:
         for seed in cfg.seeds:
