@@ -60,8 +60,11 @@ class ChainJob(TrainingRunSettings):
     new, for ``steps`` gradient steps, then evaluates on every variation of the chain and the
     unperturbed cell (``eval_episodes`` each, scenes from ``eval_seed``: not the in-training
     evaluation's scenes, so picking the best checkpoint does not flatter its final score).
-    ``episodes`` new episodes per step. Re-running
-    the same command continues an interrupted chain.
+    ``episodes`` new episodes per step. ``rounds`` adapts each variation in that many
+    steps: the first explores with ``explore.policy``'s checkpoint, every later round with
+    the previous round's result, and trains on the prior data plus the earlier rounds' data
+    of the same variation (on the prior side) with the round's own data as the new side.
+    Re-running the same command continues an interrupted chain.
     """
 
     steps: int = 3000
@@ -69,6 +72,7 @@ class ChainJob(TrainingRunSettings):
     prior: Any = "???"
     variations: list[str] = field(default_factory=list)
     episodes: int = 100
+    rounds: int = 1
     share: float = 0.5
     keep_earlier: bool = False
     init: InitSettings = field(default_factory=InitSettings)
@@ -89,6 +93,7 @@ class ChainJob(TrainingRunSettings):
         for name in self.variations:
             variation_by_name(name)
         _positive_int("episodes", self.episodes)
+        _positive_int("rounds", self.rounds)
         _positive_int("eval_episodes", self.eval_episodes)
         if not 0.0 < self.share < 1.0:
             raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1): a chain "

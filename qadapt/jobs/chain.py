@@ -5,6 +5,8 @@ Holds:
     chain_job -- the job body: for each variation, explore -> fine-tune -> evaluate.
     main -- the console entry point (Hydra overrides on the command line).
 
+With ``rounds=R`` each variation takes R steps, each exploring with the latest checkpoint
+after the first and training on that variation's earlier rounds' data as well.
 A chain directory holds ``chain.json`` and one folder per step (``step_01_<variation>``)
 with the step's new dataset (``new_data``), its fine-tuning run (``finetune``) and
 ``step.json`` (what the step made, by hash, and its evaluations). Re-running the same
@@ -139,14 +141,23 @@ def _evaluations(cfg: ChainJob, checkpoint: str, seed: int) -> list[dict[str, An
             for name in names]
 
 
-def _print_table(steps: list[dict[str, Any]]) -> None:
+def _schedule(cfg: ChainJob) -> list[tuple[str, int]]:
+    """The chain's steps in order: (variation, round number from 1) for every round."""
+    return [(name, r) for name in cfg.variations for r in range(1, cfg.rounds + 1)]
+
+
+def _label(name: str, round_number: int, rounds: int) -> str:
+    return f"{name}, round {round_number}" if rounds > 1 else name
+
+
+def _print_table(steps: list[dict[str, Any]], rounds: int) -> None:
     if not steps:
         return
     columns = [e["variation"] for e in steps[0]["evaluations"]]
     width = max(12, *(len(c) for c in columns))
     print("chain step".ljust(28) + "".join(c.rjust(width + 2) for c in columns))
     for step in steps:
-        label = f"{step['index']}. {step['variation']}"
+        label = f"{step['index']}. {_label(step['variation'], step.get('round', 1), rounds)}"
         cells = [f"{e['successes']}/{e['episodes']}" for e in step["evaluations"]]
         print(label.ljust(28) + "".join(c.rjust(width + 2) for c in cells))
 
@@ -168,24 +179,31 @@ def chain_job(cfg: ChainJob) -> int:
     record = ChainRecord.open(out, _plan(cfg, base_path, base.identity, prior))
 
     previous = str(base_path)
-    earlier_new: list[str] = []
-    for index, name in enumerate(cfg.variations, start=1):
+    earlier_new: list[str] = []  # new data of earlier variations' steps
+    for index, (name, round_number) in enumerate(_schedule(cfg), start=1):
+        if round_number == 1:
+            this_variation: list[str] = []  # new data of this variation's earlier rounds
         step_dir = out / f"step_{index:02d}_{name}"
         if index <= len(record.steps):
             done = record.steps[index - 1]
             _verified_step(done)
-            print(f"chain step {index} ({name}): finished earlier; hashes checked, reused")
+            print(f"chain step {index} ({_label(name, round_number, cfg.rounds)}): finished "
+                  "earlier; hashes checked, reused")
             previous = done["checkpoint"]["path"]
-            earlier_new.append(done["dataset"]["path"])
+            this_variation.append(done["dataset"]["path"])
+            if round_number == cfg.rounds:
+                earlier_new.extend(this_variation)
             continue
         variation = variation_by_name(name)
         step_dir.mkdir(parents=True, exist_ok=True)
-        explorer = str(base_path) if cfg.explore.policy == "base" else previous
+        first_round = round_number == 1
+        explorer = str(base_path) if first_round and cfg.explore.policy == "base" else previous
         # Distinct, fixed seeds per step: collection and training never share a stream.
         dataset = _step_dataset(cfg, variation, explorer, step_dir / "new_data",
                                 seed=cfg.seed * 1000 + index)
         new = [str(dataset.path)]
-        priors = [str(d.path) for d in prior] + (earlier_new if cfg.keep_earlier else [])
+        priors = ([str(d.path) for d in prior] + (earlier_new if cfg.keep_earlier else [])
+                  + this_variation)
         settings = cfg.finetune_settings(base=previous, prior=priors, new=new,
                                          out=str(step_dir / "finetune"),
                                          seed=cfg.seed * 1000 + index)
@@ -195,6 +213,7 @@ def chain_job(cfg: ChainJob) -> int:
         step = {
             "index": index,
             "variation": name,
+            "round": round_number,
             "explored_with": explorer,
             "parent": previous,
             "dataset": {"path": str(dataset.path), "sha256": dataset.fingerprint},
@@ -205,11 +224,14 @@ def chain_job(cfg: ChainJob) -> int:
         }
         _write_json(step_dir / STEP_RECORD_NAME, step)
         record.finish_step(step)
-        print(f"chain step {index} ({name}): checkpoint {checkpoint}")
+        print(f"chain step {index} ({_label(name, round_number, cfg.rounds)}): checkpoint "
+              f"{checkpoint}")
         previous = checkpoint
-        earlier_new.append(str(dataset.path))
+        this_variation.append(str(dataset.path))
+        if round_number == cfg.rounds:
+            earlier_new.extend(this_variation)
 
-    _print_table(record.steps)
+    _print_table(record.steps, cfg.rounds)
     print(f"chain of {len(record.steps)} steps; final checkpoint {previous}")
     print(f"outputs written to {out}")
     return 0

@@ -24,9 +24,10 @@ def base(prior, tmp_path_factory) -> Path:
     return root / "base"
 
 
-def _chain_args(base: Path, prior: Path, out: Path, *extra: str) -> list[str]:
+def _chain_args(base: Path, prior: Path, out: Path, *extra: str,
+                variations: str = "[finger_offset,drive_lag]") -> list[str]:
     return [sys.executable, "-m", "qadapt.cli", "chain", f"base={base}", f"prior={prior}",
-            "variations=[finger_offset,drive_lag]", "episodes=8", "steps=40",
+            f"variations={variations}", "episodes=8", "steps=40",
             "eval_episodes=6", "eval.every=20", "eval.episodes=6", "checkpoint_every=10",
             "learner.refresh_every=15", "explore.num_envs=4", "progress=false",
             f"out={out}", f"hydra.run.dir={out}_hydra", *extra]
@@ -78,6 +79,28 @@ def test_chain_records_each_step_with_lineage_and_evaluations(base, prior, tmp_p
     assert tree_fingerprint(out) == before
 
 
+def test_rounds_explore_with_the_latest_result_and_keep_the_earlier_rounds_data(
+        base, prior, tmp_path):
+    out = tmp_path / "rounds"
+    done = _run(_chain_args(base, prior, out, "rounds=2", variations="[finger_offset]"),
+                tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert "finger_offset, round 2" in done.stdout
+    steps = json.loads((out / "chain.json").read_text())["steps"]
+    assert [(s["variation"], s["round"]) for s in steps] == [
+        ("finger_offset", 1), ("finger_offset", 2)]
+    # Round 1 explores with the base (explore.policy=base), round 2 with round 1's result.
+    assert Path(steps[0]["explored_with"]).resolve() == Path(
+        steps[0]["parent"]).resolve()
+    assert steps[1]["explored_with"] == steps[0]["checkpoint"]["path"] == steps[1]["parent"]
+    # Round 2 trains on the prior data, round 1's data and its own (the new side, last).
+    lineage = json.loads(
+        (Path(steps[1]["checkpoint"]["path"]).parents[1] / "lineage.json").read_text())
+    hashes = [d["sha256"] for d in lineage["datasets"]]
+    assert hashes[-2:] == [steps[0]["dataset"]["sha256"], steps[1]["dataset"]["sha256"]]
+    assert len(hashes) == 3
+
+
 def test_killed_chain_resumes_to_the_same_final_checkpoint(base, prior, tmp_path):
     # The same command twice, in the same place (checkpoints record their data's paths):
     # first uninterrupted, then killed mid-way and re-run.
@@ -117,6 +140,7 @@ def test_a_directory_of_another_chain_is_refused_untouched(base, prior, tmp_path
     ("variations=[finger_offset,no_such_thing]", "variations"),
     ("variations=[]", "variations"),
     ("episodes=0", "episodes"),
+    ("rounds=0", "rounds"),
     ("share=1.0", "share"),
     ("explore.policy=oracle", "explore.policy"),
 ])
