@@ -5,6 +5,7 @@ Holds:
     SweepPlan -- a one-dimensional sweep (data budgets or shares) on one variation.
     IndicatorPlan -- runs with a source indicator (prior and new data told apart).
     ChainPlan -- the chain a study runs (variations in order) and with which strategies.
+    RoundsPlan -- rounds of adaptation on one variation, each exploring with the latest result.
     StudyJob -- the whole study: variations x strategies x seeds, sweeps, chain, evaluation.
     CellJob -- ``qadapt cell``: one cell of a study, as its launcher runs it.
     register_study_schemas -- put them into Hydra's ConfigStore.
@@ -75,12 +76,24 @@ class ChainPlan:
 
 
 @dataclass
+class RoundsPlan:
+    """``count`` rounds of adaptation on ``variation`` (null: none) for each of ``strategies``
+    and seed: ``qadapt chain rounds=count``, the first round exploring with the base, every
+    later one with the previous round's result, each with the study's new-episode budget."""
+
+    variation: str | None = None
+    count: int = 4
+    strategies: list[str] = field(default_factory=lambda: ["warm"])
+
+
+@dataclass
 class StudyJob:
     """``qadapt study``: every cell of a grid, resumable, then the report.
 
     The headline grid is ``variations x strategies x seeds`` at ``episodes`` new episodes and
     ``share`` new data; ``budgets``, ``shares`` and ``indicators`` add sweeps on one
-    variation, ``chain`` a chain of adaptations. ``finetune`` holds overrides every
+    variation, ``chain`` a chain of adaptations, ``rounds`` repeated adaptations of one
+    variation. ``finetune`` holds overrides every
     fine-tuning run gets (any ``qadapt finetune`` key, e.g. ``eval.every=250``).
     ``base``/``prior`` name an existing checkpoint and dataset; left null, ``make_base``
     says how to make them. Cells run through Hydra's multirun with the ``launcher`` group's
@@ -103,6 +116,7 @@ class StudyJob:
     shares: SweepPlan = field(default_factory=SweepPlan)
     indicators: IndicatorPlan = field(default_factory=IndicatorPlan)
     chain: ChainPlan = field(default_factory=ChainPlan)
+    rounds: RoundsPlan = field(default_factory=RoundsPlan)
     finetune: list[str] = field(default_factory=list)
     eval_episodes: int = 200
     eval_seed: int = 777
@@ -173,6 +187,15 @@ class StudyJob:
             if self.chain.explore not in ("base", "latest"):
                 raise BadInput(f"chain.explore: got {self.chain.explore!r}, expected base or "
                                "latest")
+        if self.rounds.variation is not None:
+            variation_by_name(self.rounds.variation, key="rounds.variation")
+            _positive_int("rounds.count", self.rounds.count)
+            self.rounds.strategies = _names("rounds.strategies", self.rounds.strategies,
+                                            study_arm)
+            for name in self.rounds.strategies:
+                if not study_arm(name).uses_prior:
+                    raise BadInput(f"rounds.strategies: {name!r} trains on new data only; "
+                                   "rounds train on prior plus new data")
 
 
 @dataclass

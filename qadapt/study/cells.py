@@ -65,8 +65,10 @@ def _row(cell: Cell, **fields: Any) -> dict[str, Any]:
 def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
     """One row per variation (the base's success there and on the unperturbed cell), so the
     base sits beside the strategies in every per-variation table."""
+    rounds = plan.settings.get("rounds", {}).get("variation")
     names = list(dict.fromkeys([BASE_CELL, *plan.settings["variations"],
-                                *plan.settings["chain"]["variations"]]))
+                                *plan.settings["chain"]["variations"],
+                                *([rounds] if rounds else [])]))
     results = dict(zip(names, _evaluate(plan.base, names, plan.settings), strict=True))
     return [_row(cell, run_id=f"base__{name}", variation=name,
                  evaluations=[results[BASE_CELL]] + ([results[name]] if name != BASE_CELL
@@ -110,10 +112,12 @@ def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
     settings = plan.settings
     arm = study_arm(cell.arm)
     out = where / "chain"
+    # Rounds start from the base policy (later rounds explore with the latest result).
+    explore = settings["chain"]["explore"] if cell.rounds == 1 else "base"
     overrides = [*_common_overrides(plan, cell, out), _quoted("prior", plan.prior),
                  f"variations=[{','.join(cell.variations)}]", f"episodes={cell.episodes}",
-                 f"init={arm.init}", f"share={cell.share}",
-                 f"explore.policy={settings['chain']['explore']}",
+                 f"init={arm.init}", f"share={cell.share}", f"rounds={cell.rounds}",
+                 f"explore.policy={explore}",
                  f"explore.noise={settings['explore_noise']}",
                  f"eval_episodes={settings['eval_episodes']}",
                  f"eval_seed={settings['eval_seed']}"]
@@ -129,7 +133,8 @@ def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
             steps=summary["steps"], chain_step=step["index"], curve=summary["evaluations"],
             evaluations=[_evaluation(e) for e in step["evaluations"]],
             checkpoint=step["checkpoint"]["path"], run_dir=str(run_dir),
-            logdir=str(run_dir / "logs")))
+            logdir=str(run_dir / "logs"),
+            **({"round": step["round"]} if cell.rounds > 1 else {})))
     return rows
 
 

@@ -44,7 +44,8 @@ class DataRequest:
 
 @dataclasses.dataclass(frozen=True)
 class Cell:
-    """``kind``: "base" (evaluate the base checkpoint), "finetune" or "chain"."""
+    """``kind``: "base" (evaluate the base checkpoint), "finetune" or "chain" (``rounds``
+    rounds per variation: above 1 for the study's rounds of adaptation)."""
 
     id: str
     kind: str
@@ -56,6 +57,7 @@ class Cell:
     data: str | None = None
     variations: tuple[str, ...] = ()
     indicator: str = "none"
+    rounds: int = 1
 
 
 @dataclasses.dataclass
@@ -165,6 +167,11 @@ def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
             cell_id = f"chain__{arm}__seed{seed}"
             cells[cell_id] = Cell(cell_id, "chain", arm, None, seed, cfg.episodes, cfg.share,
                                   None, tuple(cfg.chain.variations))
+    for arm in cfg.rounds.strategies if cfg.rounds.variation is not None else []:
+        for seed in cfg.seeds:
+            cell_id = f"rounds__{arm}__{cfg.rounds.variation}__seed{seed}"
+            cells[cell_id] = Cell(cell_id, "chain", arm, None, seed, cfg.episodes, cfg.share,
+                                  None, (cfg.rounds.variation,), rounds=cfg.rounds.count)
     settings = {k: plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "launcher_overrides", "report_reps", "level",
                               "filmstrip_episodes")}

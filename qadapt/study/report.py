@@ -32,14 +32,15 @@ from qadapt.study.training_sections import (
     curve_section,
     filmstrip_section,
     forgetting_section,
+    rounds_section,
     training_log_section,
 )
 from qadapt.study.view import StudyView
 
 RESULTS_NAME = "results.jsonl"
 _SECTIONS = (overview_section, success_section, improvement_section, budget_section,
-             share_section, forgetting_section, curve_section, training_log_section,
-             filmstrip_section)
+             share_section, forgetting_section, rounds_section, curve_section,
+             training_log_section, filmstrip_section)
 
 
 def _write_atomically(path: Path, text: str) -> None:

@@ -2,6 +2,7 @@
 
 Holds:
     forgetting_section -- forgetting matrix of each chain (rows: steps, columns: variations), BWT.
+    rounds_section -- success after each round of adaptation against the base and a single step.
     pooled_curve -- several runs' curves pooled into one (steps, success rates) pair.
     curve_section -- success against gradient steps from the rows' "curve" and plateau steps.
     training_log_section -- tensorboard scalars (loss, q_mean, success tags) of runs with a logdir.
@@ -21,8 +22,8 @@ import numpy as np
 
 from qadapt.study.document import Figure, Paragraph, Section, Table
 from qadapt.study.figures import Line, Panel, line_panels, matrix_image
-from qadapt.study.statistics import backward_transfer, steps_to_plateau
-from qadapt.study.view import StudyView, percent
+from qadapt.study.statistics import backward_transfer, fisher_exact_greater, steps_to_plateau
+from qadapt.study.view import StudyView, p_value_text, percent
 
 PLATEAU_SHARE = 0.95
 PLATEAU_TAIL = 0.2
@@ -103,6 +104,90 @@ def forgetting_section(view: StudyView) -> Section | None:
         blocks.append(Figure(matrix_image(rates, labels, columns, f"Forgetting, {title}"),
                              f"Forgetting matrix, {title}"))
     return Section("Forgetting in chains", blocks)
+
+
+# -- rounds of adaptation ---------------------------------------------------------------------
+def _pooled(evaluations: list) -> tuple[int, int]:
+    return (sum(e.successes for e in evaluations), sum(e.episodes for e in evaluations))
+
+
+def _count_text(wins: int, total: int) -> str:
+    return f"{percent(wins / total)} ({wins}/{total})" if total else "-"
+
+
+def rounds_section(view: StudyView) -> Section | None:
+    """Success on the variation (and the unperturbed cell) after each round, pooled over
+    seeds, beside the base and the same strategy's single-step runs at the headline budget."""
+    if not view.rounds:
+        return None
+    blocks = [Paragraph(
+        "Rounds of adaptation: each round explores the variation with the latest checkpoint "
+        "(the first round with the base), collects the study's new-episode budget and "
+        "fine-tunes on the prior data, the earlier rounds' data and its own. Counts pooled "
+        "over seeds; one-sided Fisher exact tests on the last round.")]
+    groups: dict[tuple[str, str], list] = {}
+    for row in view.rounds:
+        groups.setdefault((row.strategy, row.variation), []).append(row)
+    base_cell = view.base_variation
+    for (strategy, variation), rows in sorted(groups.items()):
+        by_round: dict[int, list] = {}
+        for row in rows:
+            by_round.setdefault(int(row.extra["round"]), []).append(row)
+        columns = [variation] + ([base_cell] if base_cell and base_cell != variation else [])
+
+        def line(label: str, group: list, budget: str,
+                 columns: list[str] = columns) -> tuple[str, ...]:
+            cells = [_count_text(*_pooled([e for r in group
+                                           if (e := r.evaluation(name)) is not None]))
+                     for name in columns]
+            return (label, budget, *cells)
+
+        base_rows = [r for r in view.standalone if r.strategy == "base"
+                     and r.variation == variation]
+        single = [r for r in view.headline_rows(strategy) if r.variation == variation]
+        table_rows = []
+        if base_rows:
+            table_rows.append(line("base", base_rows, "0"))
+        if single:
+            table_rows.append(line(f"{strategy}, one step", single,
+                                   str(single[0].new_episodes)))
+        for number in sorted(by_round):
+            group = by_round[number]
+            budget = number * group[0].new_episodes
+            table_rows.append(line(f"round {number}", group, f"{budget} in all"))
+        title = f"{strategy} on {variation} ({len({r.seed for r in rows})} seeds)"
+        blocks.append(Table(("model", "new episodes", *columns), tuple(table_rows),
+                            caption=f"Rounds of adaptation, {title}"))
+        last = by_round[max(by_round)]
+        mine = _pooled([e for r in last if (e := r.evaluation(variation)) is not None])
+        tests = []
+        for label, group in (("the base", base_rows), (f"{strategy} in one step", single)):
+            theirs = _pooled([e for r in group if (e := r.evaluation(variation)) is not None])
+            if group and theirs[1] and mine[1]:
+                result = fisher_exact_greater(mine[0], mine[1], theirs[0], theirs[1])
+                tests.append(f"against {label} one-sided p = {p_value_text(result.p_value)}")
+        if tests:
+            blocks.append(Paragraph(f"{title}, last round: " + "; ".join(tests) + "."))
+        seeds = sorted({r.seed for r in rows})
+        lines = []
+        for seed in seeds:
+            points = sorted((int(r.extra["round"]), r.evaluation(variation)) for r in rows
+                            if r.seed == seed and r.evaluation(variation) is not None)
+            if points:
+                lines.append(Line(f"seed {seed}", tuple(float(n) for n, _ in points),
+                                  tuple(e.successes / e.episodes for _, e in points),
+                                  group="seeds"))
+        if base_rows:
+            wins, total = _pooled([e for r in base_rows
+                                   if (e := r.evaluation(variation)) is not None])
+            rounds_axis = (float(min(by_round)), float(max(by_round)))
+            if total:
+                lines.append(Line("base", rounds_axis, (wins / total,) * 2, markers=False))
+        if lines:
+            blocks.append(Figure(line_panels([Panel(f"Rounds, {title}", "round",
+                                                    f"success on {variation}", lines)]),
+                                 f"Success after each round, {title}"))
+    return Section("Rounds of adaptation", blocks)
 
 
 def _rates(successes: np.ndarray, episodes: np.ndarray) -> np.ndarray:

@@ -102,7 +102,14 @@ class StudyView:
 
     @property
     def chained(self) -> list[ResultRow]:
-        return [row for row in self.rows if row.chain_step is not None]
+        """Steps of the study's chain of variations (not its rounds)."""
+        return [row for row in self.rows
+                if row.chain_step is not None and "round" not in row.extra]
+
+    @property
+    def rounds(self) -> list[ResultRow]:
+        """Steps of the study's rounds of adaptation on one variation (``round`` 1, 2, ...)."""
+        return [row for row in self.rows if "round" in row.extra]
 
     @property
     def strategies(self) -> list[str]:

@@ -212,3 +212,30 @@ def test_empty_or_malformed_results_are_clear_errors(tmp_path, capsys):
         build_report(study, level=1.5)
     assert report_main([str(study), "--reps", "50"]) == 0
     assert (study / "report.html").is_file()
+
+
+# Rounds of adaptation on finger_offset (2 seeds): successes out of 50 on the variation per
+# round and seed; the base scores 15/50 there in each of its two evaluation rows.
+ROUNDS = {1: [20, 22], 2: [26, 30], 3: [33, 35]}
+
+
+def test_rounds_section_pools_each_round_and_tests_the_last_against_the_base(tmp_path):
+    rows = synthetic_rows(with_chain=False)
+    for seed in (0, 1):
+        rows.append(_row(f"base-finger_offset-s{seed}", "base", "finger_offset", seed, 0, 15))
+        for number, counts in ROUNDS.items():
+            row = _row(f"rounds-warm-s{seed}-r{number}", "warm", "finger_offset", seed, 100,
+                       counts[seed], chain_step=number)
+            rows.append({**row, "round": number})
+    study = tmp_path / "study"
+    write_study(study, rows)
+    html = build_report(study, level=0.5, base_variation="none", reps=200)[0].read_text()
+    headings = _headings(html)
+    assert "Rounds of adaptation" in headings
+    # Rounds rows are not a chain of variations: no forgetting matrix is made of them.
+    assert "Forgetting in chains" not in headings
+    assert "<td>round 3</td><td>300 in all</td><td>68.0% (68/100)</td>" in html
+    assert "<td>base</td><td>0</td><td>30.0% (30/100)</td>" in html
+    # One-sided Fisher exact test, last round against the base (scipy.stats.fisher_exact).
+    p = scipy_stats.fisher_exact([[68, 32], [30, 70]], alternative="greater").pvalue
+    assert f"against the base one-sided p = {p:.3g}" in html

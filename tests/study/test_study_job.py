@@ -16,7 +16,8 @@ TINY = [
     "strategies=[warm,scratch_new]", "seeds=[0,1]", "episodes=6", "steps=20",
     "budgets.values=[3]", "budgets.strategies=[warm]", "shares.values=[0.3]",
     "shares.strategies=[warm,scratch_new]", "chain.variations=[finger_offset,drive_lag]",
-    "chain.strategies=[warm]", "launcher=local", "eval_episodes=6", "filmstrip_episodes=1",
+    "chain.strategies=[warm]", "rounds.variation=finger_offset", "rounds.count=2",
+    "launcher=local", "eval_episodes=6", "filmstrip_episodes=1",
     "report_reps=50",
     "finetune=['eval.every=10','eval.episodes=4','checkpoint_every=10',"
     "'learner.refresh_every=10','init.regression.steps=5']",
@@ -44,18 +45,24 @@ def test_every_cell_gives_rows_with_raw_counts(study):
     ids = {row.run_id for row in rows}
     # base: one row per variation (none, finger_offset, drive_lag); 2 arms x 2 seeds headline;
     # budget 3 for warm (2 seeds); share 0.3 for warm only (scratch_new has no share to
-    # sweep); a two-step chain per seed.
+    # sweep); a two-step chain per seed; two rounds on finger_offset per seed.
     assert {"base__none", "base__finger_offset", "base__drive_lag"} <= ids
     assert {f"warm__finger_offset__n6__share0.5__seed{s}" for s in (0, 1)} <= ids
     assert {f"scratch_new__finger_offset__n6__share1__seed{s}" for s in (0, 1)} <= ids
     assert {f"warm__finger_offset__n3__share0.5__seed{s}" for s in (0, 1)} <= ids
     assert {f"warm__finger_offset__n6__share0.3__seed{s}" for s in (0, 1)} <= ids
     assert {f"chain__warm__seed{s}__step{k}" for s in (0, 1) for k in (1, 2)} <= ids
-    assert len(rows) == 3 + 4 + 2 + 2 + 4
+    rounds = {f"rounds__warm__finger_offset__seed{s}__step{k}" for s in (0, 1) for k in (1, 2)}
+    assert rounds <= ids
+    assert len(rows) == 3 + 4 + 2 + 2 + 4 + 4
+    for row in rows:
+        assert ("round" in row.extra) == (row.run_id in rounds)
+        if row.run_id in rounds:
+            assert row.extra["round"] == row.chain_step
     for row in rows:
         for evaluation in row.evaluations:
             assert evaluation.episodes == 6 and len(evaluation.returns) == 6
-    chain_rows = [r for r in rows if r.chain_step is not None]
+    chain_rows = [r for r in rows if r.chain_step is not None and "round" not in r.extra]
     assert {e.variation for e in chain_rows[0].evaluations} == {
         "none", "finger_offset", "drive_lag"}
     warm = next(r for r in rows if r.run_id == "warm__finger_offset__n6__share0.5__seed0")
@@ -71,7 +78,7 @@ def test_every_cell_gives_rows_with_raw_counts(study):
 def test_the_report_and_filmstrips_are_written(study):
     out, _ = study
     html = (out / "report" / "report.html").read_text()
-    assert "Forgetting" in html and "Data budget" in html
+    assert "Forgetting" in html and "Data budget" in html and "Rounds of adaptation" in html
     assert (out / "report" / "summary.md").exists()
     assert {p.name for p in (out / "filmstrips").glob("*.png")} == {
         "base.png", "warm.png", "scratch_new.png"}
@@ -114,6 +121,9 @@ def test_a_directory_holding_another_study_is_refused(study):
     ("budgets.values=[2.5]", "budgets.values"),
     ("variations=[no_such_variation]", "variations"),
     ("chain.strategies=[scratch_new]", "chain.strategies"),
+    ("rounds.count=0", "rounds.count"),
+    ("rounds.strategies=[scratch_new]", "rounds.strategies"),
+    ("rounds.variation=nowhere", "rounds.variation"),
     ("share=0", "share"),
 ])
 def test_bad_study_settings_exit_2_naming_the_key(tmp_path, override, key):
