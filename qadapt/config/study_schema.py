@@ -79,11 +79,14 @@ class ChainPlan:
 class RoundsPlan:
     """``count`` rounds of adaptation on ``variation`` (null: none) for each of ``strategies``
     and seed: ``qadapt chain rounds=count``, the first round exploring with the base, every
-    later one with the previous round's result, each with the study's new-episode budget."""
+    later one with the previous round's result. ``episodes`` new episodes and ``steps``
+    gradient steps per round (null: the study's ``episodes`` and ``steps``)."""
 
     variation: str | None = None
     count: int = 4
     strategies: list[str] = field(default_factory=lambda: ["warm"])
+    episodes: int | None = None
+    steps: int | None = None
 
 
 @dataclass
@@ -190,6 +193,8 @@ class StudyJob:
         if self.rounds.variation is not None:
             variation_by_name(self.rounds.variation, key="rounds.variation")
             _positive_int("rounds.count", self.rounds.count)
+            _positive_int("rounds.episodes", self.rounds.episodes, allow_none=True)
+            _positive_int("rounds.steps", self.rounds.steps, allow_none=True)
             self.rounds.strategies = _names("rounds.strategies", self.rounds.strategies,
                                             study_arm)
             for name in self.rounds.strategies:

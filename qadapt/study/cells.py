@@ -79,7 +79,8 @@ def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
 
 def _common_overrides(plan: StudyPlan, cell: Cell, out: Path) -> list[str]:
     settings = plan.settings
-    return [_quoted("base", plan.base), f"steps={settings['steps']}", f"seed={cell.seed}",
+    steps = cell.steps or settings["steps"]
+    return [_quoted("base", plan.base), f"steps={steps}", f"seed={cell.seed}",
             _quoted("out", str(out)), "progress=false", "threads=1",
             *settings["finetune"]]
 

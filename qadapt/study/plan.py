@@ -58,6 +58,7 @@ class Cell:
     variations: tuple[str, ...] = ()
     indicator: str = "none"
     rounds: int = 1
+    steps: int | None = None  # gradient steps per run (null: the study's steps)
 
 
 @dataclasses.dataclass
@@ -170,8 +171,10 @@ def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
     for arm in cfg.rounds.strategies if cfg.rounds.variation is not None else []:
         for seed in cfg.seeds:
             cell_id = f"rounds__{arm}__{cfg.rounds.variation}__seed{seed}"
-            cells[cell_id] = Cell(cell_id, "chain", arm, None, seed, cfg.episodes, cfg.share,
-                                  None, (cfg.rounds.variation,), rounds=cfg.rounds.count)
+            cells[cell_id] = Cell(cell_id, "chain", arm, None, seed,
+                                  cfg.rounds.episodes or cfg.episodes, cfg.share, None,
+                                  (cfg.rounds.variation,), rounds=cfg.rounds.count,
+                                  steps=cfg.rounds.steps)
     settings = {k: plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "launcher_overrides", "report_reps", "level",
                               "filmstrip_episodes")}

@@ -17,6 +17,7 @@ TINY = [
     "budgets.values=[3]", "budgets.strategies=[warm]", "shares.values=[0.3]",
     "shares.strategies=[warm,scratch_new]", "chain.variations=[finger_offset,drive_lag]",
     "chain.strategies=[warm]", "rounds.variation=finger_offset", "rounds.count=2",
+    "rounds.episodes=4", "rounds.steps=10",
     "launcher=local", "eval_episodes=6", "filmstrip_episodes=1",
     "report_reps=50",
     "finetune=['eval.every=10','eval.episodes=4','checkpoint_every=10',"
@@ -57,8 +58,9 @@ def test_every_cell_gives_rows_with_raw_counts(study):
     assert len(rows) == 3 + 4 + 2 + 2 + 4 + 4
     for row in rows:
         assert ("round" in row.extra) == (row.run_id in rounds)
-        if row.run_id in rounds:
+        if row.run_id in rounds:  # rounds' own budget and run length
             assert row.extra["round"] == row.chain_step
+            assert row.new_episodes == 4 and row.steps == 10
     for row in rows:
         for evaluation in row.evaluations:
             assert evaluation.episodes == 6 and len(evaluation.returns) == 6
