@@ -63,7 +63,8 @@ class ChainJob(TrainingRunSettings):
     ``episodes`` new episodes per step. ``rounds`` adapts each variation in that many
     steps: the first explores with ``explore.policy``'s checkpoint, every later round with
     the previous round's result, and trains on the prior data plus the earlier rounds' data
-    of the same variation (on the prior side) with the round's own data as the new side.
+    of the same variation, which join the batch side ``earlier_rounds`` names ("prior", or
+    "new" beside the round's own data).
     Re-running the same command continues an interrupted chain.
     """
 
@@ -73,6 +74,7 @@ class ChainJob(TrainingRunSettings):
     variations: list[str] = field(default_factory=list)
     episodes: int = 100
     rounds: int = 1
+    earlier_rounds: str = "prior"
     share: float = 0.5
     keep_earlier: bool = False
     init: InitSettings = field(default_factory=InitSettings)
@@ -94,6 +96,8 @@ class ChainJob(TrainingRunSettings):
             variation_by_name(name)
         _positive_int("episodes", self.episodes)
         _positive_int("rounds", self.rounds)
+        if self.earlier_rounds not in ("prior", "new"):
+            raise BadInput(f"earlier_rounds: got {self.earlier_rounds!r}, expected prior or new")
         _positive_int("eval_episodes", self.eval_episodes)
         if not 0.0 < self.share < 1.0:
             raise BadInput(f"share: got {self.share!r}, expected a number in (0, 1): a chain "

@@ -201,9 +201,10 @@ def chain_job(cfg: ChainJob) -> int:
         # Distinct, fixed seeds per step: collection and training never share a stream.
         dataset = _step_dataset(cfg, variation, explorer, step_dir / "new_data",
                                 seed=cfg.seed * 1000 + index)
-        new = [str(dataset.path)]
+        rounds_to_new = cfg.earlier_rounds == "new"
+        new = [*(this_variation if rounds_to_new else []), str(dataset.path)]
         priors = ([str(d.path) for d in prior] + (earlier_new if cfg.keep_earlier else [])
-                  + this_variation)
+                  + ([] if rounds_to_new else this_variation))
         settings = cfg.finetune_settings(base=previous, prior=priors, new=new,
                                          out=str(step_dir / "finetune"),
                                          seed=cfg.seed * 1000 + index)

@@ -192,8 +192,12 @@ def run_training(
         "selected": "best" if outcome.best_path else "last",
         "config_digest": digest,
     }
+    batch_shares = [float(x) for x in (shares or [1.0 / len(datasets)] * len(datasets))]
+    # Each dataset with its share of every batch: which data the checkpoint came from, and
+    # how much of it.
     lineage = {"parent_checkpoint": parent,
-               "datasets": [{"path": str(d.path), "sha256": d.fingerprint} for d in datasets]}
+               "datasets": [{"path": str(d.path), "sha256": d.fingerprint, "share": share}
+                            for d, share in zip(datasets, batch_shares, strict=True)]}
     if initialisation is not None:
         summary["initialisation"] = lineage["initialisation"] = initialisation
     write_run_records(Path(out), summary, lineage)

@@ -169,6 +169,9 @@ def study_job(cfg: StudyJob) -> int:
     plan.write(study_dir)
     _collect_new_data(cfg, plan)
     _, pending = _gather(study_dir, plan)
+    # Chains (and rounds) are the longest cells: start them first so that the workers do
+    # not end with one long cell running alone.
+    pending.sort(key=lambda cell_id: plan.cell(cell_id).kind != "chain")
     if pending:
         _launch(cfg, study_dir, pending)
     rows, missing = _gather(study_dir, plan)

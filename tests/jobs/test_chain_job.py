@@ -99,6 +99,19 @@ def test_rounds_explore_with_the_latest_result_and_keep_the_earlier_rounds_data(
     hashes = [d["sha256"] for d in lineage["datasets"]]
     assert hashes[-2:] == [steps[0]["dataset"]["sha256"], steps[1]["dataset"]["sha256"]]
     assert len(hashes) == 3
+    # The prior side (prior data and round 1's) splits 1 - share equally; the round's own
+    # data is the new side.
+    assert [d["share"] for d in lineage["datasets"]] == [0.25, 0.25, 0.5]
+
+    # earlier_rounds=new puts round 1's data beside round 2's on the new side.
+    out = tmp_path / "rounds_new"
+    done = _run(_chain_args(base, prior, out, "rounds=2", "earlier_rounds=new",
+                            variations="[finger_offset]"), tmp_path)
+    assert done.returncode == 0, done.stderr
+    step = json.loads((out / "chain.json").read_text())["steps"][1]
+    lineage = json.loads(
+        (Path(step["checkpoint"]["path"]).parents[1] / "lineage.json").read_text())
+    assert [d["share"] for d in lineage["datasets"]] == [0.5, 0.25, 0.25]
 
 
 def test_killed_chain_resumes_to_the_same_final_checkpoint(base, prior, tmp_path):
@@ -141,6 +154,7 @@ def test_a_directory_of_another_chain_is_refused_untouched(base, prior, tmp_path
     ("variations=[]", "variations"),
     ("episodes=0", "episodes"),
     ("rounds=0", "rounds"),
+    ("earlier_rounds=both", "earlier_rounds"),
     ("share=1.0", "share"),
     ("explore.policy=oracle", "explore.policy"),
 ])

@@ -47,6 +47,7 @@ def test_finetune_writes_a_checkpoint_whose_lineage_names_parent_and_data(
     parent = load_checkpoint(lineage["parent_checkpoint"]["path"])
     assert lineage["parent_checkpoint"]["sha256"] == parent.identity
     assert [d["path"] for d in lineage["datasets"]] == [str(prior), str(new)]
+    assert [d["share"] for d in lineage["datasets"]] == [0.5, 0.5]  # the default share
     result = load_checkpoint(out / "checkpoints" / "last")
     assert result.metadata.parent_checkpoint == parent.identity
     # Evaluation ran in the environment the new data came from (the perturbed cell).
