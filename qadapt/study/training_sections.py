@@ -174,7 +174,7 @@ def rounds_section(view: StudyView) -> Section | None:
             points = sorted((int(r.extra["round"]), r.evaluation(variation)) for r in rows
                             if r.seed == seed and r.evaluation(variation) is not None)
             if points:
-                lines.append(Line(f"seed {seed}", tuple(float(n) for n, _ in points),
+                lines.append(Line("one line per seed", tuple(float(n) for n, _ in points),
                                   tuple(e.successes / e.episodes for _, e in points),
                                   group="seeds"))
         if base_rows:
