@@ -31,6 +31,14 @@ def _names(key: str, values, check) -> list[str]:
     return values
 
 
+def _needs_prior(key: str, names: list[str]) -> None:
+    """Chains and rounds train on prior plus new data: refuse a new-data-only arm."""
+    for name in names:
+        if not study_arm(name).uses_prior:
+            raise BadInput(f"{key}: {name!r} trains on new data only; chains and rounds "
+                           "train on prior plus new data")
+
+
 @dataclass
 class BasePlan:
     """Prior data from the scripted picker in the unperturbed cell, then pretraining
@@ -183,10 +191,7 @@ class StudyJob:
                 variation_by_name(name, key="chain.variations")
             self.chain.strategies = _names("chain.strategies", self.chain.strategies,
                                            study_arm)
-            for name in self.chain.strategies:
-                if not study_arm(name).uses_prior:
-                    raise BadInput(f"chain.strategies: {name!r} trains on new data only; a "
-                                   "chain trains on prior plus new data")
+            _needs_prior("chain.strategies", self.chain.strategies)
             if self.chain.explore not in ("base", "latest"):
                 raise BadInput(f"chain.explore: got {self.chain.explore!r}, expected base or "
                                "latest")
@@ -197,10 +202,7 @@ class StudyJob:
             _positive_int("rounds.steps", self.rounds.steps, allow_none=True)
             self.rounds.strategies = _names("rounds.strategies", self.rounds.strategies,
                                             study_arm)
-            for name in self.rounds.strategies:
-                if not study_arm(name).uses_prior:
-                    raise BadInput(f"rounds.strategies: {name!r} trains on new data only; "
-                                   "rounds train on prior plus new data")
+            _needs_prior("rounds.strategies", self.rounds.strategies)
 
 
 @dataclass

@@ -162,12 +162,48 @@ def _print_table(steps: list[dict[str, Any]], rounds: int) -> None:
         print(label.ljust(28) + "".join(c.rjust(width + 2) for c in cells))
 
 
+def _run_step(cfg: ChainJob, index: int, name: str, round_number: int, *, explorer: str,
+              previous: str, prior, earlier_new: list[str], this_variation: list[str],
+              out: Path) -> dict[str, Any]:
+    """Explore, fine-tune and evaluate one step; its record (also written as step.json)."""
+    from qadapt.checkpoint import load_checkpoint
+    from qadapt.jobs.finetune import run_finetune
+
+    step_dir = out / f"step_{index:02d}_{name}"
+    step_dir.mkdir(parents=True, exist_ok=True)
+    # Distinct, fixed seeds per step: collection and training never share a stream.
+    dataset = _step_dataset(cfg, variation_by_name(name), explorer, step_dir / "new_data",
+                            seed=cfg.seed * 1000 + index)
+    # The variation's earlier rounds join the side of each batch ``earlier_rounds`` names.
+    rounds_to_new = cfg.earlier_rounds == "new"
+    new = [*(this_variation if rounds_to_new else []), str(dataset.path)]
+    priors = ([str(d.path) for d in prior] + (earlier_new if cfg.keep_earlier else [])
+              + ([] if rounds_to_new else this_variation))
+    summary = run_finetune(cfg.finetune_settings(base=previous, prior=priors, new=new,
+                                                 out=str(step_dir / "finetune"),
+                                                 seed=cfg.seed * 1000 + index))
+    checkpoint = summary["checkpoint"]
+    step = {
+        "index": index,
+        "variation": name,
+        "round": round_number,
+        "explored_with": explorer,
+        "parent": previous,
+        "dataset": {"path": str(dataset.path), "sha256": dataset.fingerprint},
+        "checkpoint": {"path": checkpoint, "sha256": load_checkpoint(checkpoint).identity},
+        "training": {"steps": summary["steps"], "selected": summary["selected"],
+                     "best_success_rate": summary["best_success_rate"]},
+        "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval_seed),
+    }
+    _write_json(step_dir / STEP_RECORD_NAME, step)
+    return step
+
+
 def chain_job(cfg: ChainJob) -> int:
     import torch
 
     from qadapt.checkpoint import load_checkpoint
     from qadapt.jobs import training_run as run
-    from qadapt.jobs.finetune import run_finetune
     from qadapt.jobs.outputs import output_dir
     from qadapt.learner.loading import resolve_checkpoint
 
@@ -183,52 +219,21 @@ def chain_job(cfg: ChainJob) -> int:
     for index, (name, round_number) in enumerate(_schedule(cfg), start=1):
         if round_number == 1:
             this_variation: list[str] = []  # new data of this variation's earlier rounds
-        step_dir = out / f"step_{index:02d}_{name}"
+        label = _label(name, round_number, cfg.rounds)
         if index <= len(record.steps):
-            done = record.steps[index - 1]
-            _verified_step(done)
-            print(f"chain step {index} ({_label(name, round_number, cfg.rounds)}): finished "
-                  "earlier; hashes checked, reused")
-            previous = done["checkpoint"]["path"]
-            this_variation.append(done["dataset"]["path"])
-            if round_number == cfg.rounds:
-                earlier_new.extend(this_variation)
-            continue
-        variation = variation_by_name(name)
-        step_dir.mkdir(parents=True, exist_ok=True)
-        first_round = round_number == 1
-        explorer = str(base_path) if first_round and cfg.explore.policy == "base" else previous
-        # Distinct, fixed seeds per step: collection and training never share a stream.
-        dataset = _step_dataset(cfg, variation, explorer, step_dir / "new_data",
-                                seed=cfg.seed * 1000 + index)
-        rounds_to_new = cfg.earlier_rounds == "new"
-        new = [*(this_variation if rounds_to_new else []), str(dataset.path)]
-        priors = ([str(d.path) for d in prior] + (earlier_new if cfg.keep_earlier else [])
-                  + ([] if rounds_to_new else this_variation))
-        settings = cfg.finetune_settings(base=previous, prior=priors, new=new,
-                                         out=str(step_dir / "finetune"),
-                                         seed=cfg.seed * 1000 + index)
-        summary = run_finetune(settings)
-        checkpoint = summary["checkpoint"]
-        identity = load_checkpoint(checkpoint).identity
-        step = {
-            "index": index,
-            "variation": name,
-            "round": round_number,
-            "explored_with": explorer,
-            "parent": previous,
-            "dataset": {"path": str(dataset.path), "sha256": dataset.fingerprint},
-            "checkpoint": {"path": checkpoint, "sha256": identity},
-            "training": {"steps": summary["steps"], "selected": summary["selected"],
-                         "best_success_rate": summary["best_success_rate"]},
-            "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval_seed),
-        }
-        _write_json(step_dir / STEP_RECORD_NAME, step)
-        record.finish_step(step)
-        print(f"chain step {index} ({_label(name, round_number, cfg.rounds)}): checkpoint "
-              f"{checkpoint}")
-        previous = checkpoint
-        this_variation.append(str(dataset.path))
+            step = record.steps[index - 1]
+            _verified_step(step)
+            print(f"chain step {index} ({label}): finished earlier; hashes checked, reused")
+        else:
+            first_round = round_number == 1
+            explorer = str(base_path) if first_round and cfg.explore.policy == "base" else previous
+            step = _run_step(cfg, index, name, round_number, explorer=explorer,
+                             previous=previous, prior=prior, earlier_new=earlier_new,
+                             this_variation=this_variation, out=out)
+            record.finish_step(step)
+            print(f"chain step {index} ({label}): checkpoint {step['checkpoint']['path']}")
+        previous = step["checkpoint"]["path"]
+        this_variation.append(step["dataset"]["path"])
         if round_number == cfg.rounds:
             earlier_new.extend(this_variation)
 

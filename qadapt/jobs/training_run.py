@@ -149,6 +149,7 @@ def run_training(
     learner = FittedQLearner(critics, maximizer, learner_config, arrays, seed=seed,
                              anchor=anchor)
     memory = None if memory_limit_mb is None else memory_limit_mb * 2**20
+    shares = [float(x) for x in (shares or [1.0 / len(datasets)] * len(datasets))]
     sampler = MixtureSampler(datasets, shares=shares, batch_size=learner_config.batch_size,
                              seed=seed, memory_limit_bytes=memory)
     if indicator is not None:
@@ -192,12 +193,11 @@ def run_training(
         "selected": "best" if outcome.best_path else "last",
         "config_digest": digest,
     }
-    batch_shares = [float(x) for x in (shares or [1.0 / len(datasets)] * len(datasets))]
     # Each dataset with its share of every batch: which data the checkpoint came from, and
     # how much of it.
     lineage = {"parent_checkpoint": parent,
                "datasets": [{"path": str(d.path), "sha256": d.fingerprint, "share": share}
-                            for d, share in zip(datasets, batch_shares, strict=True)]}
+                            for d, share in zip(datasets, shares, strict=True)]}
     if initialisation is not None:
         summary["initialisation"] = lineage["initialisation"] = initialisation
     write_run_records(Path(out), summary, lineage)

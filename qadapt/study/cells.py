@@ -65,7 +65,7 @@ def _row(cell: Cell, **fields: Any) -> dict[str, Any]:
 def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
     """One row per variation (the base's success there and on the unperturbed cell), so the
     base sits beside the strategies in every per-variation table."""
-    rounds = plan.settings.get("rounds", {}).get("variation")
+    rounds = plan.settings["rounds"]["variation"]
     names = list(dict.fromkeys([BASE_CELL, *plan.settings["variations"],
                                 *plan.settings["chain"]["variations"],
                                 *([rounds] if rounds else [])]))

@@ -107,12 +107,18 @@ def forgetting_section(view: StudyView) -> Section | None:
 
 
 # -- rounds of adaptation ---------------------------------------------------------------------
-def _pooled(evaluations: list) -> tuple[int, int]:
-    return (sum(e.successes for e in evaluations), sum(e.episodes for e in evaluations))
+def _pooled(rows: list, variation: str) -> tuple[int, int]:
+    """(successes, episodes) of ``rows``' evaluations on ``variation``, summed."""
+    found = [e for r in rows if (e := r.evaluation(variation)) is not None]
+    return (sum(e.successes for e in found), sum(e.episodes for e in found))
 
 
 def _count_text(wins: int, total: int) -> str:
     return f"{percent(wins / total)} ({wins}/{total})" if total else "-"
+
+
+def _round_line(label: str, budget: str, rows: list, columns: list[str]) -> tuple[str, ...]:
+    return (label, budget, *(_count_text(*_pooled(rows, name)) for name in columns))
 
 
 def rounds_section(view: StudyView) -> Section | None:
@@ -135,34 +141,27 @@ def rounds_section(view: StudyView) -> Section | None:
             by_round.setdefault(int(row.extra["round"]), []).append(row)
         columns = [variation] + ([base_cell] if base_cell and base_cell != variation else [])
 
-        def line(label: str, group: list, budget: str,
-                 columns: list[str] = columns) -> tuple[str, ...]:
-            cells = [_count_text(*_pooled([e for r in group
-                                           if (e := r.evaluation(name)) is not None]))
-                     for name in columns]
-            return (label, budget, *cells)
-
         base_rows = [r for r in view.standalone if r.strategy == "base"
                      and r.variation == variation]
         single = [r for r in view.headline_rows(strategy) if r.variation == variation]
         table_rows = []
         if base_rows:
-            table_rows.append(line("base", base_rows, "0"))
+            table_rows.append(_round_line("base", "0", base_rows, columns))
         if single:
-            table_rows.append(line(f"{strategy}, one step", single,
-                                   str(single[0].new_episodes)))
+            table_rows.append(_round_line(f"{strategy}, one step", str(single[0].new_episodes),
+                                          single, columns))
         for number in sorted(by_round):
             group = by_round[number]
             budget = number * group[0].new_episodes
-            table_rows.append(line(f"round {number}", group, f"{budget} in all"))
+            table_rows.append(_round_line(f"round {number}", f"{budget} in all", group, columns))
         title = f"{strategy} on {variation} ({len({r.seed for r in rows})} seeds)"
         blocks.append(Table(("model", "new episodes", *columns), tuple(table_rows),
                             caption=f"Rounds of adaptation, {title}"))
         last = by_round[max(by_round)]
-        mine = _pooled([e for r in last if (e := r.evaluation(variation)) is not None])
+        mine = _pooled(last, variation)
         tests = []
         for label, group in (("the base", base_rows), (f"{strategy} in one step", single)):
-            theirs = _pooled([e for r in group if (e := r.evaluation(variation)) is not None])
+            theirs = _pooled(group, variation)
             if group and theirs[1] and mine[1]:
                 result = fisher_exact_greater(mine[0], mine[1], theirs[0], theirs[1])
                 tests.append(f"against {label} one-sided p = {p_value_text(result.p_value)}")
@@ -178,8 +177,7 @@ def rounds_section(view: StudyView) -> Section | None:
                                   tuple(e.successes / e.episodes for _, e in points),
                                   group="seeds"))
         if base_rows:
-            wins, total = _pooled([e for r in base_rows
-                                   if (e := r.evaluation(variation)) is not None])
+            wins, total = _pooled(base_rows, variation)
             rounds_axis = (float(min(by_round)), float(max(by_round)))
             if total:
                 lines.append(Line("base", rounds_axis, (wins / total,) * 2, markers=False))

@@ -31,6 +31,18 @@ def _run(args, cwd) -> subprocess.CompletedProcess:
     return subprocess.run(args, capture_output=True, text=True, cwd=cwd)
 
 
+def _kill_after_first_checkpoint(prior: Path, out: Path, cwd: Path) -> None:
+    """Start a pretraining run into ``out`` and SIGKILL it once checkpoints/last exists."""
+    proc = subprocess.Popen(_args(prior, out), cwd=cwd, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+    marker = out / "checkpoints" / "last" / "checkpoint.json"
+    deadline = time.monotonic() + 120
+    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+
+
 def test_same_config_and_seed_give_identical_checkpoint_bytes(prior, tmp_path):
     a, b = tmp_path / "a", tmp_path / "b"
     for out in (a, b):
@@ -49,14 +61,7 @@ def test_a_kill_between_the_renames_of_a_replacement_loses_nothing(prior, tmp_pa
     # back and ends with the bytes of an uninterrupted run.
     straight, killed = tmp_path / "straight", tmp_path / "killed"
     assert _run(_args(prior, straight), tmp_path).returncode == 0
-    proc = subprocess.Popen(_args(prior, killed), cwd=tmp_path, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL)
-    marker = killed / "checkpoints" / "last" / "checkpoint.json"
-    deadline = time.monotonic() + 120
-    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
-        time.sleep(0.02)
-    os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
+    _kill_after_first_checkpoint(prior, killed, tmp_path)
     last = killed / "checkpoints" / "last"
     last.rename(last.parent / ".last.replaced-k1ll")
     resumed = _run(_args(prior, killed), tmp_path)
@@ -71,14 +76,7 @@ def test_a_kill_between_the_renames_of_a_replacement_loses_nothing(prior, tmp_pa
 def test_killed_run_resumes_to_the_same_bytes(prior, tmp_path):
     straight, killed = tmp_path / "straight", tmp_path / "killed"
     assert _run(_args(prior, straight), tmp_path).returncode == 0
-    proc = subprocess.Popen(_args(prior, killed), cwd=tmp_path, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL)
-    marker = killed / "checkpoints" / "last" / "checkpoint.json"
-    deadline = time.monotonic() + 120
-    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
-        time.sleep(0.02)
-    os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
+    _kill_after_first_checkpoint(prior, killed, tmp_path)
     resumed = _run(_args(prior, killed), tmp_path)
     assert resumed.returncode == 0, resumed.stderr
     assert _digests(killed) == _digests(straight)
