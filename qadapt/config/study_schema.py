@@ -27,7 +27,7 @@ def _names(key: str, values, check) -> list[str]:
     if len(set(values)) != len(values):
         raise BadInput(f"{key}: got {values}, which repeats a name")
     for value in values:
-        check(value)
+        check(value, key=key)
     return values
 
 
@@ -88,13 +88,19 @@ class RoundsPlan:
     """``count`` rounds of adaptation on ``variation`` (null: none) for each of ``strategies``
     and seed: ``qadapt chain rounds=count``, the first round exploring with the base, every
     later one with the previous round's result. ``episodes`` new episodes and ``steps``
-    gradient steps per round (null: the study's ``episodes`` and ``steps``)."""
+    gradient steps per round (null: the study's ``episodes`` and ``steps``).
+
+    ``retrain``: strategies trained once, from the base, on the data each strategy's rounds
+    collected (prior and earlier rounds on the prior side, the last round as new data, as in
+    the last round), for as many gradient steps as all the rounds together: do the rounds
+    beat one long run on the same data?"""
 
     variation: str | None = None
     count: int = 4
     strategies: list[str] = field(default_factory=lambda: ["warm"])
     episodes: int | None = None
     steps: int | None = None
+    retrain: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -203,6 +209,11 @@ class StudyJob:
             self.rounds.strategies = _names("rounds.strategies", self.rounds.strategies,
                                             study_arm)
             _needs_prior("rounds.strategies", self.rounds.strategies)
+            self.rounds.retrain = _names("rounds.retrain", self.rounds.retrain, study_arm)
+            _needs_prior("rounds.retrain", self.rounds.retrain)
+            if self.rounds.retrain and self.rounds.count < 2:
+                raise BadInput(f"rounds.retrain: needs rounds.count of at least 2, got "
+                               f"{self.rounds.count}")
 
 
 @dataclass

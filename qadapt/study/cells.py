@@ -77,9 +77,10 @@ def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
             for name in names]
 
 
-def _common_overrides(plan: StudyPlan, cell: Cell, out: Path) -> list[str]:
+def _common_overrides(plan: StudyPlan, cell: Cell, out: Path,
+                      steps: int | None = None) -> list[str]:
     settings = plan.settings
-    steps = cell.steps or settings["steps"]
+    steps = steps or cell.steps or settings["steps"]
     return [_quoted("base", plan.base), f"steps={steps}", f"seed={cell.seed}",
             _quoted("out", str(out)), "progress=false", "threads=1",
             *settings["finetune"]]
@@ -136,7 +137,38 @@ def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
             checkpoint=step["checkpoint"]["path"], run_dir=str(run_dir),
             logdir=str(run_dir / "logs"),
             **({"round": step["round"]} if cell.rounds > 1 else {})))
+    if cell.rounds > 1:
+        rows += [_retrain_row(plan, cell, where, record, name)
+                 for name in settings["rounds"]["retrain"]]
     return rows
+
+
+def _retrain_row(plan: StudyPlan, cell: Cell, where: Path, record: dict, name: str) -> dict:
+    """One run of strategy ``name`` from the base on the data the cell's rounds collected,
+    mixed as in the last round, for the rounds' gradient steps added up."""
+    from qadapt.config.compose import compose_typed
+    from qadapt.config.training_schema import FinetuneJob, register_training_schemas
+    from qadapt.jobs.finetune import run_finetune
+
+    arm = study_arm(name, key="rounds.retrain")
+    datasets = [step["dataset"]["path"] for step in record["steps"]]
+    steps = (cell.steps or plan.settings["steps"]) * cell.rounds
+    run_dir = where / f"retrain_{name}"
+    prior = ",".join(_quoted("prior", path).split("=", 1)[1]
+                     for path in [plan.prior, *datasets[:-1]])
+    variation = cell.variations[0]
+    overrides = [*_common_overrides(plan, cell, run_dir, steps=steps),
+                 _quoted("new", datasets[-1]), f"prior=[{prior}]",
+                 *arm.finetune_overrides(cell.share)]
+    register_training_schemas()
+    summary = run_finetune(compose_typed("finetune", overrides, FinetuneJob,
+                                         key=f"{cell.id} retrain {name}"))
+    checkpoint = summary["checkpoint"]
+    return _row(cell, run_id=f"{cell.id}__retrain_{name}", strategy=name,
+                variation=variation, steps=summary["steps"], curve=summary["evaluations"],
+                evaluations=_evaluate(checkpoint, [BASE_CELL, variation], plan.settings),
+                checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(run_dir / "logs"),
+                trained_on_rounds=cell.rounds, rounds_strategy=cell.arm)
 
 
 def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:

@@ -130,7 +130,8 @@ def _short_table(cfg: StudyJob, rows: list[dict]) -> str:
         headline = (arm is not None and row["new_episodes"] == cfg.episodes
                     and not row["indicator"]
                     and row["share"] == (cfg.share if arm.uses_prior else 1.0))
-        if row["chain_step"] is not None or not (headline or row["strategy"] == "base"):
+        if (row["chain_step"] is not None or "trained_on_rounds" in row
+                or not (headline or row["strategy"] == "base")):
             continue
         for evaluation in row["evaluations"]:
             if evaluation["variation"] != row["variation"]:

@@ -121,6 +121,15 @@ def _round_line(label: str, budget: str, rows: list, columns: list[str]) -> tupl
     return (label, budget, *(_count_text(*_pooled(rows, name)) for name in columns))
 
 
+def _retrains_of(view: StudyView, strategy: str, variation: str) -> dict[str, list]:
+    """Retrain rows on the data of ``strategy``'s rounds on ``variation``, by strategy."""
+    found: dict[str, list] = {}
+    for row in view.rounds_retrains:
+        if row.extra.get("rounds_strategy") == strategy and row.variation == variation:
+            found.setdefault(row.strategy, []).append(row)
+    return found
+
+
 def rounds_section(view: StudyView) -> Section | None:
     """Success on the variation (and the unperturbed cell) after each round, pooled over
     seeds, beside the base and the same strategy's single-step runs at the headline budget."""
@@ -130,7 +139,10 @@ def rounds_section(view: StudyView) -> Section | None:
         "Rounds of adaptation: each round explores the variation with the latest checkpoint "
         "(the first round with the base), collects the study's new-episode budget and "
         "fine-tunes on the prior data, the earlier rounds' data and its own. Counts pooled "
-        "over seeds; one-sided Fisher exact tests on the last round.")]
+        "over seeds; one-sided Fisher exact tests on the last round."
+        + (" A one-run row trains its strategy once, from the base, on the same mixture as "
+           "the last round, for the gradient steps of all the rounds together."
+           if view.rounds_retrains else ""))]
     groups: dict[tuple[str, str], list] = {}
     for row in view.rounds:
         groups.setdefault((row.strategy, row.variation), []).append(row)
@@ -154,13 +166,21 @@ def rounds_section(view: StudyView) -> Section | None:
             group = by_round[number]
             budget = number * group[0].new_episodes
             table_rows.append(_round_line(f"round {number}", f"{budget} in all", group, columns))
+        retrains = _retrains_of(view, strategy, variation)
+        for name, group in retrains.items():
+            count = int(group[0].extra["trained_on_rounds"])
+            table_rows.append(_round_line(
+                f"{name}, one run of {group[0].steps} steps on the rounds' data",
+                f"{count * group[0].new_episodes} in all", group, columns))
         title = f"{strategy} on {variation} ({len({r.seed for r in rows})} seeds)"
         blocks.append(Table(("model", "new episodes", *columns), tuple(table_rows),
                             caption=f"Rounds of adaptation, {title}"))
         last = by_round[max(by_round)]
         mine = _pooled(last, variation)
         tests = []
-        for label, group in (("the base", base_rows), (f"{strategy} in one step", single)):
+        for label, group in (("the base", base_rows), (f"{strategy} in one step", single),
+                             *((f"{name} in one run on the same data", group)
+                               for name, group in retrains.items())):
             theirs = _pooled(group, variation)
             if group and theirs[1] and mine[1]:
                 result = fisher_exact_greater(mine[0], mine[1], theirs[0], theirs[1])
@@ -176,11 +196,13 @@ def rounds_section(view: StudyView) -> Section | None:
                 lines.append(Line("one line per seed", tuple(float(n) for n, _ in points),
                                   tuple(e.successes / e.episodes for _, e in points),
                                   group="seeds"))
-        if base_rows:
-            wins, total = _pooled(base_rows, variation)
-            rounds_axis = (float(min(by_round)), float(max(by_round)))
+        rounds_axis = (float(min(by_round)), float(max(by_round)))
+        for label, group in (("base", base_rows),
+                             *((f"{name}, one run on the rounds' data", group)
+                               for name, group in retrains.items())):
+            wins, total = _pooled(group, variation)
             if total:
-                lines.append(Line("base", rounds_axis, (wins / total,) * 2, markers=False))
+                lines.append(Line(label, rounds_axis, (wins / total,) * 2, markers=False))
         if lines:
             blocks.append(Figure(line_panels([Panel(f"Rounds, {title}", "round",
                                                     f"success on {variation}", lines)]),

@@ -97,8 +97,9 @@ class StudyView:
 
     @property
     def standalone(self) -> list[ResultRow]:
-        """Rows that are not a step of a chain."""
-        return [row for row in self.rows if row.chain_step is None]
+        """Rows that are neither a step of a chain nor a retrain on rounds' data."""
+        return [row for row in self.rows
+                if row.chain_step is None and "trained_on_rounds" not in row.extra]
 
     @property
     def chained(self) -> list[ResultRow]:
@@ -110,6 +111,12 @@ class StudyView:
     def rounds(self) -> list[ResultRow]:
         """Steps of the study's rounds of adaptation on one variation (``round`` 1, 2, ...)."""
         return [row for row in self.rows if "round" in row.extra]
+
+    @property
+    def rounds_retrains(self) -> list[ResultRow]:
+        """One-run retrains on the data rounds collected (``trained_on_rounds``: how many
+        rounds' data; ``rounds_strategy``: whose rounds)."""
+        return [row for row in self.rows if "trained_on_rounds" in row.extra]
 
     @property
     def strategies(self) -> list[str]:

@@ -712,6 +712,13 @@ def _negative_finetune_steps(ws, scratch):
     return _finetune(ws, scratch, ws.checkpoint, None, "steps=-1"), ["steps", "-1"]
 
 
+@case("config", "finetune")
+def _shrink_factor_over_one(ws, scratch):
+    """shrink-and-perturb factor above 1"""
+    return (_finetune(ws, scratch, ws.checkpoint, None, "init=shrink_perturb",
+                      "init.shrink.factor=1.5"), ["init.shrink.factor", "1.5"])
+
+
 @case("config", "pretrain")
 def _negative_checkpoint_every(ws, scratch):
     """negative checkpoint_every"""

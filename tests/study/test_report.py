@@ -4,6 +4,7 @@ statistics computed here from scipy and by hand)."""
 from __future__ import annotations
 
 import base64
+import html as html_text
 import json
 import re
 
@@ -12,6 +13,8 @@ import pytest
 from scipy import stats as scipy_stats
 
 from qadapt.study.report import build_report, report_main
+from qadapt.study.results import read_results
+from qadapt.study.view import StudyView
 
 EPISODES = 50
 # Headline runs (100 new episodes, share 0.5, 4 seeds): successes out of 50 per seed.
@@ -239,3 +242,30 @@ def test_rounds_section_pools_each_round_and_tests_the_last_against_the_base(tmp
     # One-sided Fisher exact test, last round against the base (scipy.stats.fisher_exact).
     p = scipy_stats.fisher_exact([[68, 32], [30, 70]], alternative="greater").pvalue
     assert f"against the base one-sided p = {p:.3g}" in html
+
+
+def test_rounds_section_sets_a_retrain_on_the_rounds_data_beside_the_last_round(tmp_path):
+    rows = synthetic_rows(with_chain=False)
+    for seed in (0, 1):
+        for number, counts in ROUNDS.items():
+            row = _row(f"rounds-warm-s{seed}-r{number}", "warm", "finger_offset", seed, 100,
+                       counts[seed], chain_step=number)
+            rows.append({**row, "round": number})
+        retrain = _row(f"rounds-warm-s{seed}-retrain", "scratch_mix", "finger_offset", seed,
+                       100, (24, 28)[seed])
+        rows.append({**retrain, "steps": 6000, "trained_on_rounds": 3,
+                     "rounds_strategy": "warm"})
+    study = tmp_path / "study"
+    write_study(study, rows)
+    view = StudyView(read_results(study / "results.jsonl"), study, level=0.5)
+    # A retrain is neither a headline run nor a round.
+    assert not any("trained_on_rounds" in r.extra for r in view.standalone + view.rounds)
+    assert len(view.rounds_retrains) == 2
+    html = html_text.unescape(
+        build_report(study, level=0.5, base_variation="none", reps=200)[0].read_text())
+    assert ("<td>scratch_mix, one run of 6000 steps on the rounds' data</td>"
+            "<td>300 in all</td><td>52.0% (52/100)</td>") in html
+    # One-sided Fisher exact test, last round (68/100) against the retrain (52/100)
+    # (scipy.stats.fisher_exact).
+    p = scipy_stats.fisher_exact([[68, 32], [52, 48]], alternative="greater").pvalue
+    assert f"against scratch_mix in one run on the same data one-sided p = {p:.3g}" in html

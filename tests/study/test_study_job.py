@@ -17,7 +17,7 @@ TINY = [
     "budgets.values=[3]", "budgets.strategies=[warm]", "shares.values=[0.3]",
     "shares.strategies=[warm,scratch_new]", "chain.variations=[finger_offset,drive_lag]",
     "chain.strategies=[warm]", "rounds.variation=finger_offset", "rounds.count=2",
-    "rounds.episodes=4", "rounds.steps=10",
+    "rounds.episodes=4", "rounds.steps=10", "rounds.retrain=[scratch_mix]",
     "launcher=local", "eval_episodes=6", "filmstrip_episodes=1",
     "report_reps=50",
     "finetune=['eval.every=10','eval.episodes=4','checkpoint_every=10',"
@@ -46,7 +46,8 @@ def test_every_cell_gives_rows_with_raw_counts(study):
     ids = {row.run_id for row in rows}
     # base: one row per variation (none, finger_offset, drive_lag); 2 arms x 2 seeds headline;
     # budget 3 for warm (2 seeds); share 0.3 for warm only (scratch_new has no share to
-    # sweep); a two-step chain per seed; two rounds on finger_offset per seed.
+    # sweep); a two-step chain per seed; two rounds on finger_offset per seed, each followed
+    # by one scratch_mix run on the two rounds' data.
     assert {"base__none", "base__finger_offset", "base__drive_lag"} <= ids
     assert {f"warm__finger_offset__n6__share0.5__seed{s}" for s in (0, 1)} <= ids
     assert {f"scratch_new__finger_offset__n6__share1__seed{s}" for s in (0, 1)} <= ids
@@ -55,7 +56,23 @@ def test_every_cell_gives_rows_with_raw_counts(study):
     assert {f"chain__warm__seed{s}__step{k}" for s in (0, 1) for k in (1, 2)} <= ids
     rounds = {f"rounds__warm__finger_offset__seed{s}__step{k}" for s in (0, 1) for k in (1, 2)}
     assert rounds <= ids
-    assert len(rows) == 3 + 4 + 2 + 2 + 4 + 4
+    retrains = {f"rounds__warm__finger_offset__seed{s}__retrain_scratch_mix" for s in (0, 1)}
+    assert retrains <= ids
+    assert len(rows) == 3 + 4 + 2 + 2 + 4 + 4 + 2
+    for run_id in retrains:
+        row = next(r for r in rows if r.run_id == run_id)
+        assert row.strategy == "scratch_mix" and row.chain_step is None
+        assert row.extra == {"trained_on_rounds": 2, "rounds_strategy": "warm"}
+        assert row.steps == 20 and row.new_episodes == 4  # both rounds' steps, in one run
+        seed = row.seed
+        chain = out / "cells" / f"rounds__warm__finger_offset__seed{seed}" / "chain"
+        lineage = json.loads((Path(row.run_dir) / "lineage.json").read_text())
+        # The last round's mixture: prior and round 1 on the prior side, round 2 as new data.
+        assert [(Path(d["path"]).name, d["share"]) for d in lineage["datasets"]] == [
+            ("prior", 0.25), ("new_data", 0.25), ("new_data", 0.5)]
+        assert [Path(d["path"]).parent.name for d in lineage["datasets"][1:]] == [
+            "step_01_finger_offset", "step_02_finger_offset"]
+        assert lineage["initialisation"]["name"] == "scratch"
     for row in rows:
         assert ("round" in row.extra) == (row.run_id in rounds)
         if row.run_id in rounds:  # rounds' own budget and run length
@@ -126,11 +143,14 @@ def test_a_directory_holding_another_study_is_refused(study):
     ("rounds.count=0", "rounds.count"),
     ("rounds.strategies=[scratch_new]", "rounds.strategies"),
     ("rounds.variation=nowhere", "rounds.variation"),
+    ("rounds.retrain=[scratch_new]", "rounds.retrain"),
+    ("rounds.retrain=[oracle]", "rounds.retrain"),
+    ("rounds.count=1 rounds.retrain=[scratch_mix]", "rounds.retrain"),
     ("share=0", "share"),
 ])
 def test_bad_study_settings_exit_2_naming_the_key(tmp_path, override, key):
     out = tmp_path / "bad"
-    done = _study(out, override)
+    done = _study(out, *override.split())
     assert done.returncode == 2, done.stderr
     assert done.stderr.startswith("qadapt study: ") and key in done.stderr, done.stderr
     assert len(done.stderr.splitlines()) == 1

@@ -2,7 +2,8 @@
 
 Holds:
     InitSettings -- strategy name (checked against the registry) plus the settings of the
-        strategies that have any (the auxiliary start's regression phase).
+        strategies that have any (the auxiliary start's regression phase, shrink and
+        perturb's factors).
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ from dataclasses import dataclass, field
 from qadapt.errors import BadInput
 from qadapt.learner.init.registry import INIT_STRATEGIES
 from qadapt.learner.init.regression import RegressionSettings
+from qadapt.learner.init.shrink_perturb import ShrinkSettings
 
 
 @dataclass
@@ -25,11 +27,12 @@ class InitSettings:
         Traceback (most recent call last):
         ...
         qadapt.errors.BadInput: init: got 'x', expected one of warm, scratch, torso, \
-frozen_torso, auxiliary, anchored
+frozen_torso, auxiliary, anchored, shrink_perturb
     """
 
     name: str = "warm"
     regression: RegressionSettings = field(default_factory=RegressionSettings)
+    shrink: ShrinkSettings = field(default_factory=ShrinkSettings)
 
     def __post_init__(self) -> None:
         if self.name not in INIT_STRATEGIES:
