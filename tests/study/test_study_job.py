@@ -70,8 +70,9 @@ def test_every_cell_gives_rows_with_raw_counts(study):
         # The last round's mixture: prior and round 1 on the prior side, round 2 as new data.
         assert [(Path(d["path"]).name, d["share"]) for d in lineage["datasets"]] == [
             ("prior", 0.25), ("new_data", 0.25), ("new_data", 0.5)]
-        assert [Path(d["path"]).parent.name for d in lineage["datasets"][1:]] == [
-            "step_01_finger_offset", "step_02_finger_offset"]
+        assert [Path(d["path"]) for d in lineage["datasets"][1:]] == [
+            chain / "step_01_finger_offset" / "new_data",
+            chain / "step_02_finger_offset" / "new_data"]
         assert lineage["initialisation"]["name"] == "scratch"
     for row in rows:
         assert ("round" in row.extra) == (row.run_id in rounds)
