@@ -36,12 +36,21 @@ def _scores_by_variation(view: StudyView, strategy: str) -> dict[str, list[float
     return scores
 
 
+def _run_kinds(view: StudyView) -> str:
+    """How the rows split: standalone runs, chain steps, rounds, retrains on rounds' data."""
+    kinds = [(len(view.standalone), "standalone"), (len(view.chained), "chain steps"),
+             (len(view.rounds), "rounds"), (len(view.rounds_retrains),
+                                            "one-run retrains on rounds' data")]
+    named = [f"{count} {name}" for count, name in kinds if count or name == "standalone"]
+    return ", ".join(named[:-1]) + " and " + named[-1] if len(named) > 1 else named[0]
+
+
 def overview_section(view: StudyView) -> Section:
     variations = sorted({row.variation for row in view.rows})
     seeds = sorted({row.seed for row in view.rows})
     blocks = [Paragraph(
-        f"{len(view.rows)} runs: {len(view.standalone)} standalone and {len(view.chained)} chain "
-        f"steps; strategies {', '.join(view.strategies)}; variations {', '.join(variations)}; "
+        f"{len(view.rows)} runs: {_run_kinds(view)}; strategies "
+        f"{', '.join(view.strategies)}; variations {', '.join(variations)}; "
         f"seeds {', '.join(str(s) for s in seeds)}. Success level for the budget answer: "
         f"{percent(view.level)}. Intervals are 95%: Wilson for one run's counts, percentile "
         f"stratified bootstrap ({view.reps} replicates, seed {view.seed}) across runs, "

@@ -263,6 +263,7 @@ def test_rounds_section_sets_a_retrain_on_the_rounds_data_beside_the_last_round(
     assert len(view.rounds_retrains) == 2
     html = html_text.unescape(
         build_report(study, level=0.5, base_variation="none", reps=200)[0].read_text())
+    assert "6 rounds and 2 one-run retrains on rounds' data; strategies" in html
     assert ("<td>scratch_mix, one run of 6000 steps on the rounds' data</td>"
             "<td>300 in all</td><td>52.0% (52/100)</td>") in html
     # One-sided Fisher exact test, last round (68/100) against the retrain (52/100)
