@@ -38,6 +38,11 @@ def _quoted(key: str, value: str) -> str:
     return f"{key}='{value}'"
 
 
+def _quoted_list(key: str, values: list[str]) -> str:
+    """``key=['a','b']``: a list override whose items may hold ``=`` or ``,``."""
+    return f"{key}=[{','.join(_quoted(key, v).split('=', 1)[1] for v in values)}]"
+
+
 def _evaluation(result: dict[str, Any]) -> dict[str, Any]:
     return {k: result[k] for k in ("variation", "successes", "episodes", "returns", "lengths")}
 
@@ -77,10 +82,15 @@ def _base_rows(plan: StudyPlan, cell: Cell) -> list[dict]:
             for name in names]
 
 
+def _run_steps(plan: StudyPlan, cell: Cell) -> int:
+    """Gradient steps of each of the cell's runs (its own, else the study's)."""
+    return cell.steps or plan.settings["steps"]
+
+
 def _common_overrides(plan: StudyPlan, cell: Cell, out: Path,
                       steps: int | None = None) -> list[str]:
     settings = plan.settings
-    steps = steps or cell.steps or settings["steps"]
+    steps = steps or _run_steps(plan, cell)
     return [_quoted("base", plan.base), f"steps={steps}", f"seed={cell.seed}",
             _quoted("out", str(out)), "progress=false", "threads=1",
             *settings["finetune"]]
@@ -152,13 +162,11 @@ def _retrain_row(plan: StudyPlan, cell: Cell, where: Path, record: dict, name: s
 
     arm = study_arm(name, key="rounds.retrain")
     datasets = [step["dataset"]["path"] for step in record["steps"]]
-    steps = (cell.steps or plan.settings["steps"]) * cell.rounds
+    steps = _run_steps(plan, cell) * cell.rounds
     run_dir = where / f"retrain_{name}"
-    prior = ",".join(_quoted("prior", path).split("=", 1)[1]
-                     for path in [plan.prior, *datasets[:-1]])
     variation = cell.variations[0]
     overrides = [*_common_overrides(plan, cell, run_dir, steps=steps),
-                 _quoted("new", datasets[-1]), f"prior=[{prior}]",
+                 _quoted("new", datasets[-1]), _quoted_list("prior", [plan.prior, *datasets[:-1]]),
                  *arm.finetune_overrides(cell.share)]
     register_training_schemas()
     summary = run_finetune(compose_typed("finetune", overrides, FinetuneJob,

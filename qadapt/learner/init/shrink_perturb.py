@@ -3,7 +3,7 @@
 Holds:
     ShrinkSettings -- the two factors, checked at the door.
     ShrinkPerturb -- each online critic's trainable weight becomes
-        ``shrink * w_base + perturb * w_fresh`` (Ash and Adams, 2020, "On Warm-Starting Neural
+        ``factor * w_base + noise * w_fresh`` (Ash and Adams, 2020, "On Warm-Starting Neural
         Network Training"), where ``w_fresh`` is the critic's own seeded initialisation;
         normalisation comes from the base unchanged.
 """
@@ -22,6 +22,15 @@ from qadapt.learner.init.base_weights import copy_from_base
 from qadapt.learner.init.contract import InitContext, InitOutcome, InitStrategy, network_part
 
 _MOVED_PARTS = ("torso", "head")
+
+
+def _check_fraction(key: str, value: object, *, zero_allowed: bool) -> None:
+    """Refuse anything but a finite number in [0, 1] (or (0, 1]), naming ``key``."""
+    number = (isinstance(value, int | float) and not isinstance(value, bool)
+              and math.isfinite(value))
+    if not (number and (0 <= value if zero_allowed else 0 < value) and value <= 1):
+        interval = "[0, 1]" if zero_allowed else "(0, 1]"
+        raise BadInput(f"{key}: got {value!r}, expected a number in {interval}")
 
 
 @dataclass
@@ -45,12 +54,8 @@ class ShrinkSettings:
     noise: float = 0.5
 
     def __post_init__(self) -> None:
-        if (isinstance(self.factor, bool) or not isinstance(self.factor, (int, float))
-                or not math.isfinite(self.factor) or not 0 < self.factor <= 1):
-            raise BadInput(f"init.shrink.factor: got {self.factor!r}, expected a number in (0, 1]")
-        if (isinstance(self.noise, bool) or not isinstance(self.noise, (int, float))
-                or not math.isfinite(self.noise) or not 0 <= self.noise <= 1):
-            raise BadInput(f"init.shrink.noise: got {self.noise!r}, expected a number in [0, 1]")
+        _check_fraction("init.shrink.factor", self.factor, zero_allowed=False)
+        _check_fraction("init.shrink.noise", self.noise, zero_allowed=True)
         if self.factor == 1 and self.noise == 0:
             raise BadInput("init.shrink: factor 1 with noise 0 is the plain warm start; "
                            "use init=warm")
