@@ -68,14 +68,46 @@ def _state_values(learner: FittedQLearner) -> np.ndarray:
     return q.max(dim=1).values.reshape(5, 5).numpy()
 
 
-@pytest.mark.parametrize("target_mode", ["refresh", "per_batch"])
-def test_gridworld_optimal_values_match_sutton_barto_figure_3_5(target_mode):
-    learner, batch = _gridworld_learner(target_mode)
-    for _ in range(60 * 80):  # 80 fitted iterations: 0.9**80 * 24 < 0.01
-        learner.update(batch)
+def _value_iteration(gamma: float = 0.9, sweeps: int = 500) -> np.ndarray:
+    """Exact optimal state values [5, 5] of the gridworld, by value iteration on its table
+    (computed here, independently of the learner; 0.9**500 * 24 is far below float noise)."""
+    values = np.zeros((gridworld.SIZE, gridworld.SIZE))
+    for _ in range(sweeps):
+        values = np.array([
+            [max(reward + gamma * values[nxt]
+                 for nxt, reward in (gridworld.step((r, c), m) for m in range(4)))
+             for c in range(gridworld.SIZE)]
+            for r in range(gridworld.SIZE)
+        ])
+    return values
+
+
+# Step size: 3e-3 for 40 fitted iterations, then 3e-4 for 50 more. With a constant 3e-3,
+# Adam's steps stay large once the regression loss is near zero, the fit jumps now and then
+# (RMSE spikes of 0.03 where it was 3e-4), and clipped double-Q's minimum turns that noise
+# into a downward bias that the 1 / (1 - gamma) = 10 horizon multiplies: one seed ended
+# 0.09 low. Decaying the step size near convergence is common practice. Measured on seeds
+# 0-7 (refresh mode): largest error over all 25 states 0.0018-0.0071.
+FAST_ITERATIONS, SLOW_ITERATIONS, SLOW_RATE = 40, 50, 3e-4
+
+
+@pytest.mark.parametrize(
+    ("target_mode", "seed"), [("refresh", 0), ("refresh", 3), ("per_batch", 0)]
+)
+def test_gridworld_optimal_values_match_sutton_barto_figure_3_5(target_mode, seed):
+    learner, batch = _gridworld_learner(target_mode, seed)
+    for iteration in range(FAST_ITERATIONS + SLOW_ITERATIONS):
+        if iteration == FAST_ITERATIONS:
+            for group in learner.optimizer.param_groups:
+                group["lr"] = SLOW_RATE
+        for _ in range(60):  # one fitted iteration: 60 full-batch steps between refreshes
+            learner.update(batch)
     values = _state_values(learner)
-    # Published values, Sutton & Barto (2018), Figure 3.5, top row (one decimal in the book).
-    np.testing.assert_allclose(values[0], gridworld.OPTIMAL_TOP_ROW, atol=0.1)
+    # The exact fixed point (value iteration above; its top-left value is 21.977).
+    np.testing.assert_allclose(values, _value_iteration(), atol=0.02)
+    # Published values, Sutton & Barto (2018), Figure 3.5, top row, rounded to one decimal in
+    # the book: within the rounding (0.05) plus 0.02.
+    np.testing.assert_allclose(values[0], gridworld.OPTIMAL_TOP_ROW, atol=0.07)
 
 
 def test_one_step_continuous_problem_greedy_action_is_within_002_of_the_best():
