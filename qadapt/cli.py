@@ -62,7 +62,7 @@ JOBS: dict[str, tuple[str, str]] = {
     ),
     "inspect": (
         "summarise a replay dataset: counts, returns, success, actions, provenance, checksums",
-        "qadapt.data.inspection:main",
+        "qadapt.jobs.inspect_job:main",
     ),
 }
 

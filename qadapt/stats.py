@@ -7,19 +7,26 @@ Holds:
 
 from __future__ import annotations
 
-import math
-from statistics import NormalDist
+from functools import lru_cache
 
 import numpy as np
+from scipy.stats import binomtest, bootstrap
 
 
 def wilson_interval(successes: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
     """Wilson score interval (Wilson, 1927) for ``successes`` out of ``trials``.
 
+    Computed by ``scipy.stats.binomtest(successes, trials).proportion_ci(method="wilson")``.
+    The bounds are clamped to [0, 1] and float noise within 1e-12 of 0 or 1 is snapped to it, so
+    0 successes give a lower bound of exactly 0.0 and ``trials`` successes an upper bound of
+    exactly 1.0.
+
     Example:
         >>> low, high = wilson_interval(8, 10)
         >>> round(low, 4), round(high, 4)
         (0.4902, 0.9433)
+        >>> wilson_interval(0, 10)[0], wilson_interval(10, 10)[1]
+        (0.0, 1.0)
     """
     if isinstance(trials, bool) or not isinstance(trials, int) or trials < 1:
         raise ValueError(f"trials: got {trials!r}, expected a positive integer")
@@ -29,12 +36,26 @@ def wilson_interval(successes: int, trials: int, confidence: float = 0.95) -> tu
         raise ValueError(f"successes: got {successes!r}, expected an integer in [0, {trials}]")
     if not 0.0 < confidence < 1.0:
         raise ValueError(f"confidence: got {confidence!r}, expected a number in (0, 1)")
-    z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
-    p = successes / trials
-    denom = 1.0 + z * z / trials
-    centre = (p + z * z / (2 * trials)) / denom
-    half = z * math.sqrt(p * (1 - p) / trials + z * z / (4 * trials * trials)) / denom
-    return max(0.0, centre - half), min(1.0, centre + half)
+    return _scipy_wilson(int(successes), int(trials), float(confidence))
+
+
+def _unit_bound(value: float) -> float:
+    """Clamp to [0, 1] and snap values within 1e-12 of 0 or 1 to exactly 0.0 or 1.0."""
+    value = min(1.0, max(0.0, float(value)))
+    if value < 1e-12:
+        return 0.0
+    if 1.0 - value < 1e-12:
+        return 1.0
+    return value
+
+
+# binomtest also computes a p-value, about 0.3 ms a call; reports ask for the same counts often.
+@lru_cache(maxsize=4096)
+def _scipy_wilson(successes: int, trials: int, confidence: float) -> tuple[float, float]:
+    interval = binomtest(successes, trials).proportion_ci(
+        confidence_level=confidence, method="wilson"
+    )
+    return _unit_bound(interval.low), _unit_bound(interval.high)
 
 
 # Resampled values held in memory at once; bounds memory for large samples (common practice).
@@ -46,10 +67,12 @@ def bootstrap_mean_interval(
 ) -> tuple[float, float]:
     """Percentile-bootstrap interval (Efron, 1979) for the mean of ``values`` [n].
 
-    Draws ``resamples`` samples of size n with replacement (numpy's PCG64 seeded with
-    ``seed``, so the same arguments give the same interval), takes each one's mean and
-    returns the (1 - confidence) / 2 and (1 + confidence) / 2 quantiles of those means.
-    Resampling is batched in blocks of about a million drawn values.
+    Computed by ``scipy.stats.bootstrap(method="percentile")``: draws ``resamples`` samples of
+    size n with replacement (indices ``integers(0, n, (resamples, n))`` from numpy's PCG64
+    seeded with ``seed``, so the same arguments give the same interval), takes each one's mean
+    and returns the (1 - confidence) / 2 and (1 + confidence) / 2 quantiles (linear
+    interpolation) of those means. Resampling is batched in blocks of about a million drawn
+    values. A single value gives the interval (value, value).
 
     Example:
         >>> low, high = bootstrap_mean_interval([1.0, 2.0, 3.0, 4.0, 5.0], seed=0)
@@ -67,14 +90,18 @@ def bootstrap_mean_interval(
         raise ValueError(f"confidence: got {confidence!r}, expected a number in (0, 1)")
     if isinstance(resamples, bool) or not isinstance(resamples, int) or resamples < 1:
         raise ValueError(f"resamples: got {resamples!r}, expected a positive integer")
-    n = sample.size
-    rng = np.random.default_rng(seed)
-    rows = max(1, _BOOTSTRAP_BLOCK // n)
-    means = np.empty(resamples)
-    for start in range(0, resamples, rows):
-        stop = min(resamples, start + rows)
-        picks = rng.integers(0, n, size=(stop - start, n))
-        means[start:stop] = sample[picks].mean(axis=1)
-    tail = (1.0 - confidence) / 2.0
-    low, high = np.quantile(means, [tail, 1.0 - tail])
-    return float(low), float(high)
+    if sample.size == 1:  # every resample is the one value (scipy needs two or more)
+        return float(sample[0]), float(sample[0])
+
+    result = bootstrap(
+        (sample,),
+        np.mean,
+        n_resamples=resamples,
+        batch=max(1, _BOOTSTRAP_BLOCK // sample.size),
+        vectorized=True,
+        axis=-1,
+        confidence_level=confidence,
+        method="percentile",
+        random_state=np.random.default_rng(seed),
+    )
+    return float(result.confidence_interval.low), float(result.confidence_interval.high)

@@ -22,7 +22,7 @@ import tempfile
 import warnings
 from pathlib import Path
 
-from qadapt.data.files import fsync_directory
+from qadapt.files import fsync_directory
 
 
 def write_file_durably(path: Path, data: bytes) -> None:

@@ -20,9 +20,10 @@ import json
 from pathlib import Path
 from typing import Any
 
+from qadapt import layout
+from qadapt.checkpoint.store import load_checkpoint
 from qadapt.errors import BadInput
-
-CHAIN_RECORD = "chain.json"
+from qadapt.layout import resolve_checkpoint
 
 
 @dataclasses.dataclass
@@ -37,16 +38,12 @@ class LineageNode:
 
 
 def _resolve(path: Path) -> Path:
-    from qadapt.learner.loading import resolve_checkpoint
-
     return resolve_checkpoint(path, key="inspect")
 
 
 def checkpoint_lineage(path: str | Path, expected_identity: str | None = None,
                        depth: int = 0) -> LineageNode:
     """The lineage tree of the checkpoint (or run directory) at ``path``."""
-    from qadapt.checkpoint import load_checkpoint
-
     try:
         checkpoint = _resolve(Path(path))
         loaded = load_checkpoint(checkpoint)
@@ -63,7 +60,7 @@ def checkpoint_lineage(path: str | Path, expected_identity: str | None = None,
                         f"{expected_identity[:12]} its child recorded")
     if meta.parent_checkpoint is None or depth > 64:
         return node
-    record = checkpoint.parent / ".." / "lineage.json"
+    record = checkpoint.parent / ".." / layout.LINEAGE
     parent_path = None
     if record.exists():
         try:
@@ -108,12 +105,13 @@ def _lines(node: LineageNode, prefix: str = "") -> list[str]:
 
 def _chain(path: Path) -> tuple[dict[str, Any], LineageNode | None]:
     try:
-        record = json.loads((path / CHAIN_RECORD).read_text())
+        record = json.loads((path / layout.CHAIN_RECORD).read_text())
         steps, plan = record["steps"], record["plan"]
         summary = {"chain": str(path), "variations": list(plan["variations"]),
                    "finished_steps": len(steps), "base": plan["base"]["path"]}
     except (ValueError, KeyError, TypeError) as err:
-        raise BadInput(f"{path / CHAIN_RECORD}: not a readable chain record ({err})") from err
+        raise BadInput(f"{path / layout.CHAIN_RECORD}: not a readable chain record "
+                       f"({err})") from err
     final = checkpoint_lineage(steps[-1]["checkpoint"]["path"]) if steps else None
     return summary, final
 
@@ -121,7 +119,7 @@ def _chain(path: Path) -> tuple[dict[str, Any], LineageNode | None]:
 def lineage_text(path: str | Path) -> str:
     """The lineage of a checkpoint, run directory or chain directory, as indented text."""
     path = Path(path)
-    if (path / CHAIN_RECORD).exists():
+    if (path / layout.CHAIN_RECORD).exists():
         summary, final = _chain(path)
         head = (f"chain {path}: {summary['finished_steps']} of {len(summary['variations'])} "
                 f"steps finished ({' -> '.join(summary['variations'])})")
@@ -134,7 +132,7 @@ def lineage_text(path: str | Path) -> str:
 def lineage_record(path: str | Path) -> dict[str, Any]:
     """The same lineage as JSON-able data (``qadapt inspect PATH --json``)."""
     path = Path(path)
-    if (path / CHAIN_RECORD).exists():
+    if (path / layout.CHAIN_RECORD).exists():
         summary, final = _chain(path)
         return {**summary, "lineage": None if final is None else dataclasses.asdict(final)}
     return {"lineage": dataclasses.asdict(checkpoint_lineage(path))}
@@ -143,5 +141,5 @@ def lineage_record(path: str | Path) -> dict[str, Any]:
 def is_lineage_path(path: str | Path) -> bool:
     """A chain, checkpoint or run directory (rather than a dataset)."""
     path = Path(path)
-    return any((path / name).exists() for name in (CHAIN_RECORD, "checkpoint.json",
-                                                   "summary.json"))
+    return any((path / name).exists() for name in (layout.CHAIN_RECORD, layout.CHECKPOINT_RECORD,
+                                                   layout.SUMMARY))

@@ -18,8 +18,8 @@ from typing import Any
 
 import gymnasium
 
-from qadapt.data.spaces import describe_space, parse_space
 from qadapt.errors import BadInput
+from qadapt.spaces import describe_space, parse_space
 
 _SHA256 = re.compile(r"[0-9a-f]{64}")
 

@@ -16,8 +16,8 @@ from typing import Any
 
 import gymnasium
 
-from qadapt.data.spaces import BoxDescription, DiscreteDescription, describe_space
 from qadapt.errors import BadInput
+from qadapt.spaces import BoxDescription, DiscreteDescription, describe_space
 
 _BOUND_TOLERANCE = 1e-6  # common practice: float32 keeps about 7 significant digits
 

@@ -45,8 +45,8 @@ from qadapt.checkpoint.state_packing import (
     skeleton_to_text,
     unpack_state,
 )
-from qadapt.data.files import remove_tree, sha256_of_file
 from qadapt.errors import BadInput
+from qadapt.files import remove_tree, sha256_of_file
 
 # The safetensors header metadata key holding the training state's layout. One key only:
 # safetensors writes its metadata map in hash order, which would break byte-identical saves.

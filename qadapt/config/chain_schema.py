@@ -13,9 +13,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from hydra.core.config_store import ConfigStore
+
 from qadapt.config.compose import variation_by_name
 from qadapt.config.schema import EnvConfig, _positive_int
-from qadapt.config.training_schema import FinetuneJob, TrainingRunSettings, _paths
+from qadapt.config.training_schema import (
+    FinetuneJob,
+    TrainingRunSettings,
+    _paths,
+    register_training_schemas,
+)
 from qadapt.errors import BadInput
 from qadapt.learner.init.settings import InitSettings
 
@@ -119,10 +126,6 @@ CHAIN_SCHEMAS: dict[str, tuple[str | None, type]] = {
 
 
 def register_chain_schemas() -> None:
-    from hydra.core.config_store import ConfigStore
-
-    from qadapt.config.training_schema import register_training_schemas
-
     register_training_schemas()
     store = ConfigStore.instance()
     for name, (group, node) in CHAIN_SCHEMAS.items():

@@ -14,16 +14,15 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from qadapt.config.schema import VariationConfig
+from hydra import compose, initialize_config_dir
+from hydra.core.global_hydra import GlobalHydra
+
+from qadapt.config.hydra_entry import CONFIG_DIR, _first_line
+from qadapt.config.schema import VariationConfig, register_schemas, to_typed
 from qadapt.errors import BadInput
 
 
 def _compose(config_name: str | None, overrides: list[str]):
-    from hydra import compose, initialize_config_dir
-    from hydra.core.global_hydra import GlobalHydra
-
-    from qadapt.config.hydra_entry import CONFIG_DIR
-
     if GlobalHydra.instance().is_initialized():
         return compose(config_name=config_name, overrides=overrides)
     with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
@@ -33,9 +32,6 @@ def _compose(config_name: str | None, overrides: list[str]):
 def compose_typed(config_name: str, overrides: list[str], schema: type, key: str) -> Any:
     """The typed config of ``qadapt CONFIG_NAME OVERRIDES`` (BadInput names ``key`` and the
     first line of the composition error)."""
-    from qadapt.config.hydra_entry import _first_line
-    from qadapt.config.schema import register_schemas, to_typed
-
     register_schemas()
     try:
         return to_typed(_compose(config_name, overrides), schema)
@@ -51,9 +47,6 @@ def variation_by_name(name: str, key: str = "variations") -> VariationConfig:
 
     BadInput names ``key``, the unknown option and the options there are.
     """
-    from qadapt.config.hydra_entry import _first_line
-    from qadapt.config.schema import register_schemas, to_typed
-
     register_schemas()
     try:
         return to_typed(_compose(None, [f"+variation={name}"]).variation, VariationConfig)

@@ -11,6 +11,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from hydra.core.config_store import ConfigStore
+
 from qadapt.config.schema import EnvConfig, VariationConfig, _non_negative_int, _positive_int
 from qadapt.errors import BadInput
 
@@ -65,6 +67,4 @@ class EvaluateJob:
 
 def register_evaluate_schema() -> None:
     """Store EvaluateJob as ``evaluate_schema`` (idempotent)."""
-    from hydra.core.config_store import ConfigStore
-
     ConfigStore.instance().store(name="evaluate_schema", node=EvaluateJob)

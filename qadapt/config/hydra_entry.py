@@ -18,6 +18,11 @@ import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
+import hydra
+from hydra import compose, initialize_config_dir
+from hydra.core.global_hydra import GlobalHydra
+
+from qadapt.config.schema import register_schemas, to_typed
 from qadapt.errors import BadInput, TrainingFailed
 
 CONFIG_DIR = Path(__file__).resolve().parents[2] / "configs"
@@ -93,11 +98,6 @@ def refuse_instantiation(job: str, argv: Sequence[str]) -> None:
 
 def check_config(job: str, overrides: list[str], schema: type) -> None:
     """Compose the job's config with Hydra's compose API and build the typed object."""
-    from hydra import compose, initialize_config_dir
-    from hydra.core.global_hydra import GlobalHydra
-
-    from qadapt.config.schema import to_typed
-
     GlobalHydra.instance().clear()
     try:
         with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
@@ -113,10 +113,6 @@ def check_config(job: str, overrides: list[str], schema: type) -> None:
 
 def run_job(job: str, schema: type, task: Callable, argv: Sequence[str]) -> int:
     """Run ``task(typed_config)`` for ``qadapt JOB argv...`` under Hydra; return exit status."""
-    import hydra
-
-    from qadapt.config.schema import register_schemas, to_typed
-
     register_schemas()
     refuse_instantiation(job, argv)
     overrides = _plain_overrides(argv)

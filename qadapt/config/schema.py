@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from hydra.core.config_store import ConfigStore
 from omegaconf import DictConfig, OmegaConf
 
 from qadapt.errors import BadInput
@@ -196,8 +197,6 @@ SCHEMAS: dict[str, tuple[str | None, type]] = {
 
 def register_schemas() -> None:
     """Store every schema in Hydra's ConfigStore (idempotent)."""
-    from hydra.core.config_store import ConfigStore
-
     store = ConfigStore.instance()
     for name, (group, node) in SCHEMAS.items():
         store.store(name=name, node=node, group=group)

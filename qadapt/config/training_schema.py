@@ -19,10 +19,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from hydra.core.config_store import ConfigStore
+
 from qadapt.config.schema import EnvConfig, VariationConfig
 from qadapt.errors import BadInput
 from qadapt.learner.config import LearnerConfig
 from qadapt.learner.init.settings import InitSettings
+from qadapt.learner.source_indicator import INDICATOR_KINDS
 from qadapt.nets import QNetworkConfig
 
 
@@ -183,7 +186,6 @@ class FinetuneJob(TrainingRunSettings):
         else:
             self.prior = [] if self.prior is None else _paths("prior", self.prior)
         self.init.check_run(self.learner.anchor_weight, has_prior=bool(self.prior))
-        from qadapt.learner.source_indicator import INDICATOR_KINDS
 
         if self.indicator not in INDICATOR_KINDS:
             raise BadInput(f"indicator: got {self.indicator!r}, expected one of "
@@ -202,8 +204,6 @@ TRAINING_SCHEMAS: dict[str, tuple[str | None, type]] = {
 
 
 def register_training_schemas() -> None:
-    from hydra.core.config_store import ConfigStore
-
     store = ConfigStore.instance()
     for name, (group, node) in TRAINING_SCHEMAS.items():
         store.store(name=name, node=node, group=group)

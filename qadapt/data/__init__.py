@@ -9,7 +9,6 @@ Holds (each from its own module):
     split_dataset -- split a dataset by episode into train and held-out parts [split]
     inspect_dataset -- a report on a dataset (also ``qadapt inspect``) [inspection]
     dataset_statistics, DatasetStatistics -- counts, returns, success, action ranges [statistics]
-    check_spaces -- compare a dataset's spaces with an env's or a checkpoint's [spaces]
     MixtureSampler -- batches mixed from several datasets in given shares [mixture]
     LinearShareSchedule, check_shares -- share vectors and their schedule [shares]
     ReplayBatch -- the batch handed to the learner [batch]
@@ -38,7 +37,6 @@ _HOMES = {
     "UniformRandomPolicy": "policy",
     "LinearShareSchedule": "shares",
     "check_shares": "shares",
-    "check_spaces": "spaces",
     "split_dataset": "split",
     "DatasetStatistics": "statistics",
     "dataset_statistics": "statistics",

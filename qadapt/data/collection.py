@@ -26,12 +26,12 @@ from qadapt.data.dataset import open_dataset
 from qadapt.data.manifest import EnvironmentRecord
 from qadapt.data.policy import Policy
 from qadapt.data.schema import FORMAT_VERSION
-from qadapt.data.spaces import DiscreteDescription, describe_space
 from qadapt.data.statistics import dataset_statistics
 from qadapt.data.step_log import StepLog
 from qadapt.data.validation import check_actions
 from qadapt.data.writer import DatasetWriter, check_collector_record
 from qadapt.errors import BadInput
+from qadapt.spaces import DiscreteDescription, describe_space
 
 DEFAULT_CHUNK_TRANSITIONS = 1 << 16
 # Episode length assumed when sizing the first chunk of an episode-count run whose env has no

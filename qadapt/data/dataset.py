@@ -15,11 +15,11 @@ from pathlib import Path
 
 import numpy as np
 
-from qadapt.data.files import resolve_member
 from qadapt.data.manifest import Manifest, read_manifest
 from qadapt.data.npy_files import NpyHeader, RowReader, read_npy_header, read_rows
 from qadapt.data.verification import verify_files
 from qadapt.errors import BadInput
+from qadapt.files import resolve_member
 
 
 def content_fingerprint(manifest: Manifest) -> str:

@@ -18,10 +18,8 @@ import gymnasium
 import numpy as np
 
 from qadapt.data.episodes import check_done_flags, episode_lengths_from_index
-from qadapt.data.files import sha256_of_file
 from qadapt.data.npy_files import read_npy_header
 from qadapt.data.schema import FIELDS
-from qadapt.data.spaces import describe_space
 from qadapt.data.validation import (
     as_bool,
     as_float32,
@@ -32,6 +30,8 @@ from qadapt.data.validation import (
 )
 from qadapt.data.writer import DatasetWriter, check_collector_record
 from qadapt.errors import BadInput
+from qadapt.files import sha256_of_file
+from qadapt.spaces import describe_space
 
 REQUIRED = ("observations", "actions", "rewards", "next_observations", "terminated", "truncated")
 OPTIONAL = ("episode_index", "success")

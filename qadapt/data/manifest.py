@@ -29,8 +29,8 @@ from qadapt.data.schema import (
     expected_fields,
     expected_shape,
 )
-from qadapt.data.spaces import SpaceDescription, parse_space
 from qadapt.errors import BadInput
+from qadapt.spaces import SpaceDescription, parse_space
 
 FORMAT_NAME = "qadapt replay dataset"
 _MAX_MANIFEST_BYTES = 1 << 24

@@ -13,8 +13,8 @@ from typing import Any, Protocol, runtime_checkable
 import gymnasium
 import numpy as np
 
-from qadapt.data.spaces import BoxDescription, describe_space
 from qadapt.errors import BadInput
+from qadapt.spaces import BoxDescription, describe_space
 
 
 @runtime_checkable

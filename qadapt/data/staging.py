@@ -20,15 +20,15 @@ from typing import Any
 
 import numpy as np
 
-from qadapt.data.files import (
+from qadapt.data.npy_files import NpyStreamWriter
+from qadapt.data.schema import MANIFEST_NAME
+from qadapt.errors import BadInput
+from qadapt.files import (
     fsync_directory,
     remove_tree,
     sha256_of_file,
     write_text_durably,
 )
-from qadapt.data.npy_files import NpyStreamWriter
-from qadapt.data.schema import MANIFEST_NAME
-from qadapt.errors import BadInput
 
 _CHUNK_NAME = re.compile(r"chunk-(\d{6})")
 _RUN_FILE = "run.json"

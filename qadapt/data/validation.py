@@ -16,8 +16,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from qadapt.data.spaces import BoxDescription, DiscreteDescription, SpaceDescription
 from qadapt.errors import BadInput
+from qadapt.spaces import BoxDescription, DiscreteDescription, SpaceDescription
 
 
 def as_float32(array: np.ndarray, *, field: str, where: str) -> np.ndarray:

@@ -25,7 +25,6 @@ from qadapt.data.episodes import (
     episode_returns,
     episode_success,
 )
-from qadapt.data.files import write_text_durably
 from qadapt.data.manifest import (
     EnvironmentRecord,
     FieldEntry,
@@ -42,7 +41,6 @@ from qadapt.data.schema import (
     expected_fields,
     expected_shape,
 )
-from qadapt.data.spaces import SpaceDescription, describe_space
 from qadapt.data.staging import StagingArea, check_output_path
 from qadapt.data.validation import (
     as_bool,
@@ -53,6 +51,8 @@ from qadapt.data.validation import (
     check_row_counts,
 )
 from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
+from qadapt.spaces import SpaceDescription, describe_space
 
 _STEP_FLOATS = ("observations", "actions", "rewards", "next_observations")
 

@@ -23,18 +23,29 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from qadapt.config.chain_schema import ChainJob
-from qadapt.config.compose import variation_by_name
-from qadapt.errors import BadInput
+import torch
 
-RECORD_NAME = "chain.json"
-STEP_RECORD_NAME = "step.json"
+from qadapt import layout
+from qadapt.checkpoint import load_checkpoint
+from qadapt.config.chain_schema import ChainJob, register_chain_schemas
+from qadapt.config.compose import variation_by_name
+from qadapt.config.hydra_entry import run_job
+from qadapt.config.schema import PolicyConfig
+from qadapt.data import collect, open_dataset
+from qadapt.envs import env_record, make_vector_env
+from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
+from qadapt.jobs import training_run as run
+from qadapt.jobs.collect import build_policy
+from qadapt.jobs.evaluate import evaluate_checkpoint
+from qadapt.jobs.finetune import run_finetune
+from qadapt.jobs.outputs import output_dir
+from qadapt.layout import resolve_checkpoint
+
 BASE_CELL = "none"
 
 
 def _write_json(path: Path, value: dict[str, Any]) -> None:
-    from qadapt.data.files import write_text_durably
-
     write_text_durably(path, json.dumps(value, indent=2, sort_keys=True))
 
 
@@ -53,7 +64,7 @@ class ChainRecord:
 
     @classmethod
     def open(cls, out: Path, plan: dict[str, Any]) -> ChainRecord:
-        path = out / RECORD_NAME
+        path = out / layout.CHAIN_RECORD
         if not path.exists():
             record = cls(path, plan)
             out.mkdir(parents=True, exist_ok=True)
@@ -80,9 +91,6 @@ class ChainRecord:
 
 def _verified_step(record: dict[str, Any]) -> None:
     """Check a finished step's dataset and checkpoint still hash to what it recorded."""
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.data import open_dataset
-
     dataset = open_dataset(record["dataset"]["path"])
     if dataset.fingerprint != record["dataset"]["sha256"]:
         raise BadInput(f"{record['dataset']['path']}: its fingerprint changed since chain step "
@@ -95,11 +103,6 @@ def _verified_step(record: dict[str, Any]) -> None:
 
 def _step_dataset(cfg: ChainJob, variation, policy_checkpoint: str, out: Path, seed: int):
     """The step's new dataset: reused when complete, resumed when half-written."""
-    from qadapt.config.schema import PolicyConfig
-    from qadapt.data import collect, open_dataset
-    from qadapt.envs import env_record, make_vector_env
-    from qadapt.jobs.collect import build_policy
-
     expected_env = env_record(cfg.env, variation)
     if out.exists() and (out / "manifest.json").exists():
         dataset = open_dataset(out)
@@ -119,8 +122,6 @@ def _step_dataset(cfg: ChainJob, variation, policy_checkpoint: str, out: Path, s
 
 
 def _plan(cfg: ChainJob, base_path: Path, base_identity: str, prior) -> dict[str, Any]:
-    from qadapt.jobs import training_run as run
-
     settings = {k: run.plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "progress", "base", "prior", "threads")}
     plan = {
@@ -133,8 +134,6 @@ def _plan(cfg: ChainJob, base_path: Path, base_identity: str, prior) -> dict[str
 
 
 def _evaluations(cfg: ChainJob, checkpoint: str, seed: int) -> list[dict[str, Any]]:
-    from qadapt.jobs.evaluate import evaluate_checkpoint
-
     names = [BASE_CELL, *[v for v in dict.fromkeys(cfg.variations) if v != BASE_CELL]]
     return [evaluate_checkpoint(checkpoint, cfg.env, variation_by_name(name), cfg.eval_episodes,
                                 seed=seed, threads=cfg.threads)
@@ -166,9 +165,6 @@ def _run_step(cfg: ChainJob, index: int, name: str, round_number: int, *, explor
               previous: str, prior, earlier_new: list[str], this_variation: list[str],
               out: Path) -> dict[str, Any]:
     """Explore, fine-tune and evaluate one step; its record (also written as step.json)."""
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.jobs.finetune import run_finetune
-
     step_dir = out / f"step_{index:02d}_{name}"
     step_dir.mkdir(parents=True, exist_ok=True)
     # Distinct, fixed seeds per step: collection and training never share a stream.
@@ -195,18 +191,11 @@ def _run_step(cfg: ChainJob, index: int, name: str, round_number: int, *, explor
                      "best_success_rate": summary["best_success_rate"]},
         "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval_seed),
     }
-    _write_json(step_dir / STEP_RECORD_NAME, step)
+    _write_json(step_dir / layout.STEP_RECORD, step)
     return step
 
 
 def chain_job(cfg: ChainJob) -> int:
-    import torch
-
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.jobs import training_run as run
-    from qadapt.jobs.outputs import output_dir
-    from qadapt.learner.loading import resolve_checkpoint
-
     torch.set_num_threads(cfg.threads)
     out = output_dir(cfg.out, "chain")
     base_path = resolve_checkpoint(cfg.base, key="base")
@@ -244,8 +233,5 @@ def chain_job(cfg: ChainJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.chain_schema import register_chain_schemas
-    from qadapt.config.hydra_entry import run_job
-
     register_chain_schemas()
     return run_job("chain", ChainJob, chain_job, argv)

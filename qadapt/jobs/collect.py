@@ -10,33 +10,30 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from demo_envs.pick_cell import PickCellVectorEnv, ScriptedPicker
+from qadapt.config.hydra_entry import run_job
 from qadapt.config.schema import CollectJob, PolicyConfig
+from qadapt.data import UniformRandomPolicy, collect
+from qadapt.envs import env_record, make_vector_env
 from qadapt.errors import BadInput
 from qadapt.jobs.outputs import output_dir
+from qadapt.learner.loading import checkpoint_policy
 
 
 def build_policy(policy: PolicyConfig, env, seed: int):
     """The policy object for collection (``act`` and ``describe``)."""
     if policy.kind == "scripted":
-        from demo_envs.pick_cell import PickCellVectorEnv, ScriptedPicker
-
         if not isinstance(env.unwrapped, PickCellVectorEnv):
             raise BadInput("policy=scripted: the scripted picker only drives the pick cell")
         return ScriptedPicker(noise=policy.noise, random_rate=policy.random_rate, seed=seed)
     if policy.kind == "random":
-        from qadapt.data import UniformRandomPolicy
-
         return UniformRandomPolicy(env.single_action_space, seed=seed)
-    from qadapt.learner.loading import checkpoint_policy
 
     return checkpoint_policy(policy.checkpoint, env, seed=seed, gaussian_std=policy.noise,
                              epsilon=policy.random_rate)
 
 
 def collect_job(cfg: CollectJob) -> int:
-    from qadapt.data import collect
-    from qadapt.envs import env_record, make_vector_env
-
     out = output_dir(cfg.out, "dataset")
     n = cfg.num_envs if cfg.episodes is None else min(cfg.num_envs, cfg.episodes)
     env = make_vector_env(cfg.env, cfg.variation, n)
@@ -53,6 +50,4 @@ def collect_job(cfg: CollectJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-
     return run_job("collect", CollectJob, collect_job, argv)

@@ -22,9 +22,24 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from qadapt.config.evaluate_schema import EvaluateJob
+import numpy as np
+import torch
+from omegaconf import OmegaConf
+
+from qadapt import layout
+from qadapt.checkpoint import load_checkpoint
+from qadapt.config.compose import variation_by_name
+from qadapt.config.evaluate_schema import EvaluateJob, register_evaluate_schema
+from qadapt.config.hydra_entry import run_job
 from qadapt.config.schema import EnvConfig, VariationConfig
+from qadapt.envs import env_record, make_vector_env
 from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
+from qadapt.jobs.outputs import output_dir
+from qadapt.layout import resolve_checkpoint
+from qadapt.learner.loading import checkpoint_policy
+from qadapt.rollout import run_episodes
+from qadapt.stats import bootstrap_mean_interval, wilson_interval
 
 # Recorded by the pick cell for its variation; evaluation applies its own variation instead.
 _VARIATION_KWARGS = ("perturbations", "reveal")
@@ -63,15 +78,6 @@ def evaluate_checkpoint(
     episode, for paired comparisons), "mean_return", "return_low"/"return_high" (95%
     percentile bootstrap of the mean, seeded with ``seed``) and "mean_length" (steps).
     """
-    import numpy as np
-    import torch
-
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.envs import env_record, make_vector_env
-    from qadapt.learner.loading import checkpoint_policy, resolve_checkpoint
-    from qadapt.rollout import run_episodes
-    from qadapt.stats import bootstrap_mean_interval, wilson_interval
-
     for key, value in (("episodes", episodes), ("threads", threads), ("num_envs", num_envs)):
         if isinstance(value, bool) or not isinstance(value, int) or value < 1:
             raise BadInput(f"{key}: got {value!r}, expected a positive integer")
@@ -136,20 +142,12 @@ def evaluation_table(results: list[dict[str, Any]]) -> str:
 
 
 def _variations(cfg: EvaluateJob) -> list[VariationConfig]:
-    from qadapt.config.compose import variation_by_name
-
     if cfg.variations is None:
         return [cfg.variation]
     return [variation_by_name(name) for name in cfg.variations]
 
 
 def evaluate_job(cfg: EvaluateJob) -> int:
-    from omegaconf import OmegaConf
-
-    from qadapt.data.files import write_text_durably
-    from qadapt.jobs.outputs import output_dir
-    from qadapt.learner.loading import resolve_checkpoint
-
     # Everything the user named is checked before the first episode runs.
     variations = _variations(cfg)
     for path in cfg.ckpt:
@@ -166,7 +164,7 @@ def evaluate_job(cfg: EvaluateJob) -> int:
         raise BadInput(f"out: cannot create {out} ({err.strerror})") from err
     record = {"episodes": cfg.episodes, "seed": cfg.seed, "confidence": 0.95,
               "results": results}
-    write_text_durably(out / "evaluation.json", json.dumps(record, indent=2, allow_nan=False))
+    write_text_durably(out / layout.EVALUATION, json.dumps(record, indent=2, allow_nan=False))
     write_text_durably(out / "config.yaml", OmegaConf.to_yaml(OmegaConf.structured(cfg)))
     print(evaluation_table(results))
     print(f"outputs written to {out}")
@@ -174,8 +172,5 @@ def evaluate_job(cfg: EvaluateJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.evaluate_schema import register_evaluate_schema
-    from qadapt.config.hydra_entry import run_job
-
     register_evaluate_schema()
     return run_job("evaluate", EvaluateJob, evaluate_job, argv)

@@ -14,22 +14,27 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Sequence
 
-from qadapt.config.training_schema import FinetuneJob, build_learner_config
+import torch
+
+from qadapt.checkpoint import load_checkpoint
+from qadapt.config.hydra_entry import run_job
+from qadapt.config.training_schema import (
+    FinetuneJob,
+    build_learner_config,
+    register_training_schemas,
+)
+from qadapt.errors import BadInput
+from qadapt.jobs import training_run as run
+from qadapt.jobs.outputs import output_dir
+from qadapt.layout import resolve_checkpoint
+from qadapt.learner.assembly import new_critics, observation_statistics
+from qadapt.learner.init import InitContext, init_strategy
+from qadapt.learner.source_indicator import SourceIndicator, TaggedDataset, widen_observation_input
+from qadapt.nets import QNetworkConfig
 
 
 def run_finetune(cfg: FinetuneJob) -> dict:
     """Fine-tune as ``cfg`` says; return the run's summary (also in ``summary.json``)."""
-    import torch
-
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.jobs import training_run as run
-    from qadapt.jobs.outputs import output_dir
-    from qadapt.learner.assembly import new_critics, observation_statistics
-    from qadapt.learner.init import InitContext, init_strategy
-    from qadapt.learner.loading import resolve_checkpoint
-    from qadapt.learner.source_indicator import TaggedDataset
-    from qadapt.nets import QNetworkConfig
-
     torch.set_num_threads(cfg.threads)
     torch.use_deterministic_algorithms(True)
     strategy = init_strategy(cfg.init)
@@ -85,9 +90,6 @@ def _indicator_and_weights(cfg: FinetuneJob, base, where: str, n_prior: int, n_n
                            obs_dim: int):
     """The run's source indicator (or None) and the base weights widened to its columns
     (zero weights for new columns: the widened base computes exactly the base's Q)."""
-    from qadapt.errors import BadInput
-    from qadapt.learner.source_indicator import SourceIndicator, widen_observation_input
-
     indicator = SourceIndicator.for_sources(cfg.indicator, n_prior, n_new)
     base_indicator = SourceIndicator.from_json(base.metadata.network.get("source_indicator"),
                                                where)
@@ -107,8 +109,5 @@ def finetune_job(cfg: FinetuneJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-    from qadapt.config.training_schema import register_training_schemas
-
     register_training_schemas()
     return run_job("finetune", FinetuneJob, finetune_job, argv)

@@ -9,14 +9,14 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from qadapt.config.hydra_entry import run_job
 from qadapt.config.schema import ImportJob
+from qadapt.data import import_arrays
+from qadapt.envs import env_record, make_vector_env
+from qadapt.jobs.outputs import output_dir
 
 
 def import_job(cfg: ImportJob) -> int:
-    from qadapt.data import import_arrays
-    from qadapt.envs import env_record, make_vector_env
-    from qadapt.jobs.outputs import output_dir
-
     out = output_dir(cfg.out, "dataset")
     env = make_vector_env(cfg.env, cfg.variation, 1)
     path = import_arrays(
@@ -31,6 +31,4 @@ def import_job(cfg: ImportJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-
     return run_job("import", ImportJob, import_job, argv)

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from hydra.core.hydra_config import HydraConfig
+
 from qadapt.errors import BadInput
 
 
@@ -17,8 +19,6 @@ def output_dir(out: str | None, default_name: str) -> Path:
     if out:
         path = Path(out)
     else:
-        from hydra.core.hydra_config import HydraConfig
-
         path = Path(HydraConfig.get().runtime.output_dir) / default_name
     try:
         path.parent.mkdir(parents=True, exist_ok=True)

@@ -14,16 +14,20 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Sequence
 
-from qadapt.config.training_schema import PretrainJob, build_learner_config
+import torch
+
+from qadapt.config.hydra_entry import run_job
+from qadapt.config.training_schema import (
+    PretrainJob,
+    build_learner_config,
+    register_training_schemas,
+)
+from qadapt.jobs import training_run as run
+from qadapt.jobs.outputs import output_dir
+from qadapt.learner.assembly import new_critics, observation_statistics
 
 
 def pretrain_job(cfg: PretrainJob) -> int:
-    import torch
-
-    from qadapt.jobs import training_run as run
-    from qadapt.jobs.outputs import output_dir
-    from qadapt.learner.assembly import new_critics, observation_statistics
-
     torch.set_num_threads(cfg.threads)
     torch.use_deterministic_algorithms(True)
     out = output_dir(cfg.out, "pretrain")
@@ -54,8 +58,5 @@ def pretrain_job(cfg: PretrainJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-    from qadapt.config.training_schema import register_training_schemas
-
     register_training_schemas()
     return run_job("pretrain", PretrainJob, pretrain_job, argv)

@@ -9,12 +9,12 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from qadapt.config.hydra_entry import run_job
 from qadapt.config.schema import SplitJob
+from qadapt.data import open_dataset, split_dataset
 
 
 def split_job(cfg: SplitJob) -> int:
-    from qadapt.data import open_dataset, split_dataset
-
     train, held_out = split_dataset(
         cfg.source, cfg.held_out_fraction, cfg.seed, cfg.out_train, cfg.out_held_out,
         overwrite=cfg.overwrite,
@@ -27,6 +27,4 @@ def split_job(cfg: SplitJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-
     return run_job("split", SplitJob, split_job, argv)

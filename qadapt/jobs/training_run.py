@@ -13,17 +13,29 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import gymnasium as gym
+
+from qadapt import layout
+from qadapt.checkpoint import CheckpointMetadata, DatasetReference
 from qadapt.config.training_schema import EvalSettings, MaximizerSettings
+from qadapt.data import MixtureSampler, open_dataset
+from qadapt.envs import make_recorded_env, make_vector_env
 from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
+from qadapt.learner import FittedQLearner
+from qadapt.learner.assembly import transition_arrays
+from qadapt.learner.source_indicator import TaggedDataset, TaggedSampler
+from qadapt.learner.trainer import GreedyEvaluator, Trainer, TrainingPlan, success_rate
+from qadapt.maximize import CrossEntropyMaximizer
+from qadapt.spaces import check_spaces
 
 
 def open_sources(paths: list[str]):
     """ReplayDatasets for ``paths`` (verified), all with the first one's spaces."""
-    from qadapt.data import check_spaces, open_dataset
-
     datasets = [open_dataset(p) for p in paths]
     first = datasets[0]
     for other in datasets[1:]:
@@ -38,10 +50,6 @@ def config_digest(settings: dict[str, Any]) -> str:
 
 
 def build_maximizer(settings: MaximizerSettings, action_space):
-    import gymnasium as gym
-
-    from qadapt.maximize import CrossEntropyMaximizer
-
     if not isinstance(action_space, gym.spaces.Box):
         raise BadInput(f"the CEM maximiser needs a Box action space, got {action_space}")
     try:
@@ -55,9 +63,6 @@ def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=No
     training data's."""
     if settings.every == 0:
         return None
-    from qadapt.data import check_spaces
-    from qadapt.envs import make_recorded_env, make_vector_env
-    from qadapt.learner.trainer import GreedyEvaluator
 
     if settings.env_from == "data":
         record = dataset.manifest.environment
@@ -76,11 +81,9 @@ def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=No
 
 
 def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str, Any]) -> None:
-    from qadapt.data.files import write_text_durably
-
     run_dir.mkdir(parents=True, exist_ok=True)
-    write_text_durably(run_dir / "summary.json", json.dumps(summary, indent=2, sort_keys=True))
-    write_text_durably(run_dir / "lineage.json", json.dumps(lineage, indent=2, sort_keys=True))
+    write_text_durably(run_dir / layout.SUMMARY, json.dumps(summary, indent=2, sort_keys=True))
+    write_text_durably(run_dir / layout.LINEAGE, json.dumps(lineage, indent=2, sort_keys=True))
 
 
 def plain(obj: Any) -> Any:
@@ -91,8 +94,6 @@ def plain(obj: Any) -> Any:
 # Checkpoints carry a fixed creation time so that the same config and seed give
 # byte-identical checkpoints; the wall-clock duration is in summary.json.
 def _reproducible_time():
-    from datetime import UTC, datetime
-
     return datetime(1970, 1, 1, tzinfo=UTC)
 
 
@@ -128,18 +129,10 @@ def run_training(
     source's columns to its observations (batches, cached targets, ``make_critics``'s
     arrays) and the acting columns in evaluation; checkpoints record it. Returns the summary.
     """
-    from qadapt.checkpoint import CheckpointMetadata, DatasetReference
-    from qadapt.data import MixtureSampler
-    from qadapt.learner import FittedQLearner
-    from qadapt.learner.assembly import transition_arrays
-    from qadapt.learner.trainer import Trainer, TrainingPlan, success_rate
-
     first = datasets[0]
     obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()
     maximizer = build_maximizer(maximizer_settings, act_space)
     if indicator is not None:
-        from qadapt.learner.source_indicator import TaggedDataset
-
         arrays = [transition_arrays(TaggedDataset(d, indicator.values[i]))
                   for i, d in enumerate(datasets)]
     else:
@@ -153,8 +146,6 @@ def run_training(
     sampler = MixtureSampler(datasets, shares=shares, batch_size=learner_config.batch_size,
                              seed=seed, memory_limit_bytes=memory)
     if indicator is not None:
-        from qadapt.learner.source_indicator import TaggedSampler
-
         sampler = TaggedSampler(sampler, indicator)
     evaluator = make_evaluator(eval_settings, maximizer, eval_dataset,
                                acting_columns=None if indicator is None else indicator.acting)

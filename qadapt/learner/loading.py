@@ -1,7 +1,6 @@
 """Loading a trained Q-network from a checkpoint, and acting with it.
 
 Holds:
-    resolve_checkpoint -- a checkpoint directory from a checkpoint or a run directory.
     load_q_network -- the acting network of a checkpoint, checked against expected spaces.
     checkpoint_policy -- a QPolicy over a checkpoint's network, for evaluation or collection.
 """
@@ -15,29 +14,13 @@ import torch
 
 from qadapt.checkpoint import load_checkpoint
 from qadapt.errors import BadInput
+from qadapt.layout import resolve_checkpoint
 from qadapt.learner.policy import QPolicy
 from qadapt.learner.source_indicator import ActingTag, SourceIndicator
 from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import QNetworkConfig, build_q_network
 
 DEFAULT_POLICY_MAXIMIZER = {"samples": 64, "elites": 6, "iterations": 2}
-
-
-def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
-    """``path`` itself if it is a checkpoint; for a run directory, the checkpoint its
-    summary.json selected (the best evaluated one when evaluation was on)."""
-    import json
-
-    given = Path(path)
-    if (given / "checkpoint.json").exists():
-        return given
-    summary = given / "summary.json"
-    if summary.exists():
-        try:
-            return Path(json.loads(summary.read_text())["checkpoint"])
-        except (ValueError, KeyError) as err:
-            raise BadInput(f"{key}: {summary} does not name a checkpoint") from err
-    raise BadInput(f"{key}: {given} is neither a checkpoint nor a run directory")
 
 
 def load_q_network(path: str | Path, observation_space=None, action_space=None,

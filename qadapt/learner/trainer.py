@@ -25,11 +25,16 @@ from pathlib import Path
 from typing import Any
 
 import torch
+from torch.utils.tensorboard import SummaryWriter
+from tqdm import tqdm
 
+from qadapt import layout
 from qadapt.checkpoint import CheckpointMetadata, load_checkpoint, save_checkpoint
+from qadapt.checkpoint.durable import restore_replaced
 from qadapt.errors import BadInput
 from qadapt.learner.fqi import FittedQLearner, TrainingDiverged
 from qadapt.learner.policy import QPolicy
+from qadapt.learner.source_indicator import ActingTag
 from qadapt.maximize import ActionMaximizer
 from qadapt.rollout import EpisodeResults, run_episodes
 
@@ -89,7 +94,6 @@ class GreedyEvaluator:
         if self._envs is None:
             self._envs = self.make_env(self.episodes)
         if self.acting_columns is not None:  # trained with a source indicator
-            from qadapt.learner.source_indicator import ActingTag
 
             network = ActingTag(network, self.acting_columns)
         policy = QPolicy(network, self.maximizer, seed=self.seed)
@@ -153,8 +157,8 @@ class Trainer:
         self.metadata = metadata
         self.evaluator = evaluator
         self.outcome = TrainingOutcome(steps=plan.steps)
-        self.last_path = self.run_dir / "checkpoints" / "last"
-        self.best_path = self.run_dir / "checkpoints" / "best"
+        self.last_path = layout.last_checkpoint(self.run_dir)
+        self.best_path = layout.best_checkpoint(self.run_dir)
         self._saved_step = -1
 
     # -- checkpoints -------------------------------------------------------------------
@@ -188,8 +192,6 @@ class Trainer:
         self.outcome.best_path = self.best_path
 
     def _resume(self) -> None:
-        from qadapt.checkpoint.durable import restore_replaced
-
         # A kill in the middle of replacing a checkpoint leaves the previous one aside.
         restore_replaced(self.last_path)
         restore_replaced(self.best_path)
@@ -229,13 +231,10 @@ class Trainer:
 
     def run(self) -> TrainingOutcome:
         """Train to ``plan.steps`` (continuing a killed run from ``checkpoints/last``)."""
-        from torch.utils.tensorboard import SummaryWriter
-        from tqdm import tqdm
-
         self._resume()
         start = time.perf_counter()
         plan = self.plan
-        log = SummaryWriter(str(self.run_dir / "logs"))
+        log = SummaryWriter(str(layout.logs_dir(self.run_dir)))
         bar = tqdm(total=plan.steps, initial=self.learner.step, disable=not plan.progress_bar,
                    desc="gradient steps", dynamic_ncols=True)
         last_log_time, last_log_step = time.perf_counter(), self.learner.step

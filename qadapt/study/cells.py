@@ -18,14 +18,25 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from qadapt.config.study_schema import CellJob
-from qadapt.errors import BadInput
-from qadapt.jobs.chain import BASE_CELL
+import torch
+
+from qadapt import layout
+from qadapt.config.chain_schema import ChainJob, register_chain_schemas
+from qadapt.config.compose import compose_typed, variation_by_name
+from qadapt.config.hydra_entry import run_job
+from qadapt.config.training_schema import FinetuneJob, register_training_schemas
+from qadapt.errors import BadInput, TrainingFailed
+from qadapt.files import write_text_durably
+from qadapt.jobs.chain import BASE_CELL, chain_job
+from qadapt.jobs.evaluate import evaluate_checkpoint
+from qadapt.jobs.finetune import run_finetune
 from qadapt.study.arms import study_arm
 from qadapt.study.plan import Cell, StudyPlan
+from qadapt.study.results import ResultRow
+from qadapt.study.schema import CellJob, register_study_schemas
 
-ROWS_NAME = "rows.json"
-FAILED_NAME = "failed.json"
+ROWS_NAME = layout.CELL_ROWS
+FAILED_NAME = layout.CELL_FAILURE
 
 
 def cell_dir(study_dir: Path, cell_id: str) -> Path:
@@ -48,9 +59,6 @@ def _evaluation(result: dict[str, Any]) -> dict[str, Any]:
 
 
 def _evaluate(checkpoint: str, names: list[str], settings: dict[str, Any]) -> list[dict]:
-    from qadapt.config.compose import variation_by_name
-    from qadapt.jobs.evaluate import evaluate_checkpoint
-
     return [_evaluation(evaluate_checkpoint(checkpoint, None, variation_by_name(name),
                                             settings["eval_episodes"],
                                             seed=settings["eval_seed"]))
@@ -58,8 +66,6 @@ def _evaluate(checkpoint: str, names: list[str], settings: dict[str, Any]) -> li
 
 
 def _row(cell: Cell, **fields: Any) -> dict[str, Any]:
-    from qadapt.study.results import ResultRow
-
     row = {"run_id": cell.id, "variation": cell.variation or BASE_CELL,
            "strategy": cell.arm or "base", "seed": cell.seed if cell.seed is not None else 0,
            "new_episodes": cell.episodes, "share": cell.share, "indicator": False,
@@ -97,10 +103,6 @@ def _common_overrides(plan: StudyPlan, cell: Cell, out: Path,
 
 
 def _finetune_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
-    from qadapt.config.compose import compose_typed
-    from qadapt.config.training_schema import FinetuneJob, register_training_schemas
-    from qadapt.jobs.finetune import run_finetune
-
     arm = study_arm(cell.arm)
     run_dir = where / "run"
     overrides = [*_common_overrides(plan, cell, run_dir), _quoted("new", cell.data),
@@ -113,14 +115,10 @@ def _finetune_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
     return [_row(cell, steps=summary["steps"], curve=summary["evaluations"],
                  indicator=cell.indicator != "none",
                  evaluations=_evaluate(checkpoint, [BASE_CELL, cell.variation], plan.settings),
-                 checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(run_dir / "logs"))]
+                 checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(layout.logs_dir(run_dir)))]
 
 
 def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
-    from qadapt.config.chain_schema import ChainJob, register_chain_schemas
-    from qadapt.config.compose import compose_typed
-    from qadapt.jobs.chain import chain_job
-
     settings = plan.settings
     arm = study_arm(cell.arm)
     out = where / "chain"
@@ -135,17 +133,17 @@ def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
                  f"eval_seed={settings['eval_seed']}"]
     register_chain_schemas()
     chain_job(compose_typed("chain", overrides, ChainJob, key=cell.id))
-    record = json.loads((out / "chain.json").read_text())
+    record = json.loads((out / layout.CHAIN_RECORD).read_text())
     rows = []
     for step in record["steps"]:
         run_dir = Path(step["checkpoint"]["path"]).parents[1]
-        summary = json.loads((run_dir / "summary.json").read_text())
+        summary = json.loads((run_dir / layout.SUMMARY).read_text())
         rows.append(_row(
             cell, run_id=f"{cell.id}__step{step['index']}", variation=step["variation"],
             steps=summary["steps"], chain_step=step["index"], curve=summary["evaluations"],
             evaluations=[_evaluation(e) for e in step["evaluations"]],
             checkpoint=step["checkpoint"]["path"], run_dir=str(run_dir),
-            logdir=str(run_dir / "logs"),
+            logdir=str(layout.logs_dir(run_dir)),
             **({"round": step["round"]} if cell.rounds > 1 else {})))
     if cell.rounds > 1:
         rows += [_retrain_row(plan, cell, where, record, name)
@@ -156,10 +154,6 @@ def _chain_rows(plan: StudyPlan, cell: Cell, where: Path) -> list[dict]:
 def _retrain_row(plan: StudyPlan, cell: Cell, where: Path, record: dict, name: str) -> dict:
     """One run of strategy ``name`` from the base on the data the cell's rounds collected,
     mixed as in the last round, for the rounds' gradient steps added up."""
-    from qadapt.config.compose import compose_typed
-    from qadapt.config.training_schema import FinetuneJob, register_training_schemas
-    from qadapt.jobs.finetune import run_finetune
-
     arm = study_arm(name, key="rounds.retrain")
     datasets = [step["dataset"]["path"] for step in record["steps"]]
     steps = _run_steps(plan, cell) * cell.rounds
@@ -175,14 +169,12 @@ def _retrain_row(plan: StudyPlan, cell: Cell, where: Path, record: dict, name: s
     return _row(cell, run_id=f"{cell.id}__retrain_{name}", strategy=name,
                 variation=variation, steps=summary["steps"], curve=summary["evaluations"],
                 evaluations=_evaluate(checkpoint, [BASE_CELL, variation], plan.settings),
-                checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(run_dir / "logs"),
+                checkpoint=checkpoint, run_dir=str(run_dir), logdir=str(layout.logs_dir(run_dir)),
                 trained_on_rounds=cell.rounds, rounds_strategy=cell.arm)
 
 
 def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
     """Run cell ``cell_id`` of the study at ``study_dir`` unless its rows exist; its rows."""
-    from qadapt.data.files import write_text_durably
-
     study_dir = Path(study_dir)
     plan = StudyPlan.read(study_dir)
     cell = plan.cell(cell_id)
@@ -207,11 +199,6 @@ def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
 def cell_job(cfg: CellJob) -> int:
     """Run the cell; a cell that fails (bad input, divergence) records why in
     ``failed.json`` and lets the rest of the sweep go on; the study reports it."""
-    import torch
-
-    from qadapt.data.files import write_text_durably
-    from qadapt.errors import TrainingFailed
-
     torch.set_num_threads(1)  # cells run side by side; one thread each
     try:
         run_cell(cfg.study, cfg.cell)
@@ -226,8 +213,5 @@ def cell_job(cfg: CellJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-    from qadapt.config.study_schema import register_study_schemas
-
     register_study_schemas()
     return run_job("cell", CellJob, cell_job, argv)

@@ -17,6 +17,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure as MatplotlibFigure
 
 _COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#9467bd", "#ff7f0e", "#8c564b", "#e377c2",
             "#7f7f7f", "#bcbd22", "#17becf")
@@ -64,8 +66,6 @@ class Panel:
 
 
 def _png(figure) -> bytes:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
     FigureCanvasAgg(figure)
     buffer = io.BytesIO()
     figure.savefig(buffer, format="png", dpi=90, metadata={"Software": None})
@@ -74,8 +74,6 @@ def _png(figure) -> bytes:
 
 def line_panels(panels: list[Panel], columns: int = 3) -> bytes:
     """Draw ``panels`` in a grid of at most ``columns`` per row; returns PNG bytes."""
-    from matplotlib.figure import Figure as MatplotlibFigure
-
     if not panels:
         raise ValueError("panels: got none, expected at least one panel")
     columns = max(1, min(columns, len(panels)))
@@ -115,8 +113,6 @@ def line_panels(panels: list[Panel], columns: int = 3) -> bytes:
 
 def matrix_image(matrix, row_labels, column_labels, title: str) -> bytes:
     """A colour grid of ``matrix`` (rows x columns, values in [0, 1], NaN shown blank)."""
-    from matplotlib.figure import Figure as MatplotlibFigure
-
     values = np.asarray(matrix, dtype=float)
     if values.shape != (len(row_labels), len(column_labels)):
         raise ValueError(f"matrix: got shape {values.shape}, expected "

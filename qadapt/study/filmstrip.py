@@ -13,20 +13,24 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+import gymnasium as gym
 import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+import demo_envs
+from qadapt.checkpoint import load_checkpoint
+from qadapt.config.compose import variation_by_name
+from qadapt.config.schema import EnvConfig
+from qadapt.envs import make_vector_env
+from qadapt.layout import resolve_checkpoint
+from qadapt.learner.loading import checkpoint_policy
 
 FRAME_STEP = 2
 FILMSTRIP_SEED = 4242
 
 
 def _frames(checkpoint: str, variation, episodes: int) -> list[tuple[list[np.ndarray], bool]]:
-    import gymnasium as gym
-
-    import demo_envs
-    from qadapt.config.schema import EnvConfig
-    from qadapt.envs import make_vector_env
-    from qadapt.learner.loading import checkpoint_policy
-
     probe = make_vector_env(EnvConfig(), variation, 1)
     policy = checkpoint_policy(checkpoint, probe, seed=FILMSTRIP_SEED)
     kwargs = {"perturbations": dict(variation.perturbations)} if variation.perturbations else {}
@@ -50,9 +54,6 @@ def _frames(checkpoint: str, variation, episodes: int) -> list[tuple[list[np.nda
 
 
 def _draw(strips, title: str, path: Path) -> None:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
     columns = max(len(frames) for frames, _ in strips)
     figure = Figure(figsize=(1.2 * columns, 1.35 * len(strips) + 0.4))
     FigureCanvasAgg(figure)
@@ -70,13 +71,8 @@ def _draw(strips, title: str, path: Path) -> None:
 
 def write_filmstrips(study_dir: Path, plan, rows: list[dict[str, Any]], episodes: int) -> None:
     """One PNG per strategy (first seed, first variation); nothing for other envs."""
-    from qadapt.checkpoint import load_checkpoint
-    from qadapt.config.compose import variation_by_name
-    from qadapt.learner.loading import resolve_checkpoint
-
     if episodes < 1 or not rows:
         return
-    import demo_envs
 
     if load_checkpoint(resolve_checkpoint(plan.base)).metadata.env_id != demo_envs.PICK_CELL_ID:
         return

@@ -18,10 +18,13 @@ import json
 from pathlib import Path
 from typing import Any
 
+from qadapt import layout
 from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
+from qadapt.jobs.training_run import plain
 from qadapt.study.arms import study_arm
 
-PLAN_NAME = "cells.json"
+PLAN_NAME = layout.PLAN
 
 
 def _derived_seed(*parts: Any) -> int:
@@ -105,8 +108,6 @@ class StudyPlan:
 
     def write(self, study_dir: Path) -> None:
         """Write ``cells.json``; refuse a directory that holds a different study's plan."""
-        from qadapt.data.files import write_text_durably
-
         path = Path(study_dir) / PLAN_NAME
         if path.exists():
             stored = StudyPlan.read(study_dir)
@@ -135,8 +136,6 @@ def _finetune_cell(cells: dict, data: dict, study_dir: Path, arm_name: str,
 
 def build_plan(cfg, base: str, prior: str, study_dir: Path) -> StudyPlan:
     """Every cell of ``cfg`` (a StudyJob) in a fixed order, and the datasets they need."""
-    from qadapt.jobs.training_run import plain
-
     cells: dict[str, Cell] = {"base": Cell("base", "base")}
     data: dict[tuple, DataRequest] = {}
     for variation in cfg.variations:

@@ -13,12 +13,13 @@ study has no data for (no chain rows, no curves, no logs) are left out.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 from collections.abc import Sequence
 from pathlib import Path
 
+from qadapt import layout
 from qadapt.errors import BadInput
+from qadapt.files import write_text_durably
 from qadapt.study.compare_sections import (
     budget_section,
     improvement_section,
@@ -37,16 +38,10 @@ from qadapt.study.training_sections import (
 )
 from qadapt.study.view import StudyView
 
-RESULTS_NAME = "results.jsonl"
+RESULTS_NAME = layout.RESULTS
 _SECTIONS = (overview_section, success_section, improvement_section, budget_section,
              share_section, forgetting_section, rounds_section, curve_section,
              training_log_section, filmstrip_section)
-
-
-def _write_atomically(path: Path, text: str) -> None:
-    partial = path.with_name(path.name + ".partial")
-    partial.write_text(text, encoding="utf-8")
-    os.replace(partial, path)
 
 
 def build_report(
@@ -89,9 +84,9 @@ def build_report(
     out_dir = Path(out) if out is not None else study_dir
     out_dir.mkdir(parents=True, exist_ok=True)
     title = f"Study report: {study_dir.resolve().name}"
-    html_path, markdown_path = out_dir / "report.html", out_dir / "summary.md"
-    _write_atomically(html_path, to_html(title, sections))
-    _write_atomically(markdown_path, to_markdown(title, sections))
+    html_path, markdown_path = out_dir / layout.REPORT_HTML, out_dir / layout.REPORT_MARKDOWN
+    write_text_durably(html_path, to_html(title, sections))
+    write_text_durably(markdown_path, to_markdown(title, sections))
     return html_path, markdown_path
 
 

@@ -20,17 +20,31 @@ import time
 from collections.abc import Sequence
 from pathlib import Path
 
-from qadapt.config.study_schema import StudyJob
-from qadapt.errors import TrainingFailed
-from qadapt.study.cells import FAILED_NAME, ROWS_NAME, _quoted, cell_dir
-from qadapt.study.plan import StudyPlan, build_plan
+import torch
+from hydra.core.hydra_config import HydraConfig
 
-RESULTS_NAME = "results.jsonl"
+from qadapt import layout
+from qadapt.config.compose import compose_typed
+from qadapt.config.hydra_entry import run_job
+from qadapt.config.schema import CollectJob
+from qadapt.config.training_schema import PretrainJob, register_training_schemas
+from qadapt.data import open_dataset
+from qadapt.errors import TrainingFailed
+from qadapt.files import write_text_durably
+from qadapt.jobs.collect import collect_job
+from qadapt.jobs.outputs import output_dir
+from qadapt.jobs.pretrain import pretrain_job
+from qadapt.study.arms import STUDY_ARMS
+from qadapt.study.cells import FAILED_NAME, ROWS_NAME, _quoted, cell_dir
+from qadapt.study.filmstrip import write_filmstrips
+from qadapt.study.plan import StudyPlan, build_plan
+from qadapt.study.report import build_report
+from qadapt.study.schema import StudyJob, register_study_schemas
+
+RESULTS_NAME = layout.RESULTS
 
 
 def _complete_dataset(path: Path) -> bool:
-    from qadapt.data import open_dataset
-
     if not (path / "manifest.json").exists():
         return False
     open_dataset(path)  # verifies; a damaged dataset stops the study with its message
@@ -38,10 +52,6 @@ def _complete_dataset(path: Path) -> bool:
 
 
 def _collect(overrides: list[str], out: Path) -> None:
-    from qadapt.config.compose import compose_typed
-    from qadapt.config.schema import CollectJob
-    from qadapt.jobs.collect import collect_job
-
     if _complete_dataset(out):
         return
     collect_job(compose_typed("collect", [*overrides, _quoted("out", str(out)),
@@ -50,10 +60,6 @@ def _collect(overrides: list[str], out: Path) -> None:
 
 def _make_base(cfg: StudyJob, study_dir: Path) -> tuple[str, str]:
     """The study's prior dataset and base checkpoint (made here unless given)."""
-    from qadapt.config.compose import compose_typed
-    from qadapt.config.training_schema import PretrainJob, register_training_schemas
-    from qadapt.jobs.pretrain import pretrain_job
-
     if cfg.base is not None:
         return cfg.base, cfg.prior
     plan = cfg.make_base
@@ -61,7 +67,7 @@ def _make_base(cfg: StudyJob, study_dir: Path) -> tuple[str, str]:
     print(f"study: prior data ({plan.episodes} scripted episodes) -> {prior}")
     _collect(["policy=scripted", f"policy.noise={plan.noise}", f"episodes={plan.episodes}",
               f"seed={plan.seed}"], prior)
-    if not (base / "summary.json").exists():
+    if not (base / layout.SUMMARY).exists():
         print(f"study: pretraining the base ({plan.pretrain_steps} steps) -> {base}")
         register_training_schemas()
         pretrain_job(compose_typed("pretrain", [
@@ -82,8 +88,6 @@ def _collect_new_data(cfg: StudyJob, plan: StudyPlan) -> None:
 
 def _launcher_choice() -> str:
     """The ``launcher`` group option this study was started with (configs/launcher/)."""
-    from hydra.core.hydra_config import HydraConfig
-
     return HydraConfig.get().runtime.choices.get("launcher") or "local"
 
 
@@ -112,8 +116,6 @@ def _gather(study_dir: Path, plan: StudyPlan) -> tuple[list[dict], list[str]]:
 
 
 def _write_results(study_dir: Path, rows: list[dict]) -> Path:
-    from qadapt.data.files import write_text_durably
-
     path = study_dir / RESULTS_NAME
     write_text_durably(path, "".join(json.dumps(row, sort_keys=True) + "\n" for row in rows))
     return path
@@ -122,8 +124,6 @@ def _write_results(study_dir: Path, rows: list[dict]) -> Path:
 def _short_table(cfg: StudyJob, rows: list[dict]) -> str:
     """Success on each row's own variation, pooled over seeds: the base and the headline
     runs (``episodes`` new episodes at ``share``); the report has everything else."""
-    from qadapt.study.arms import STUDY_ARMS
-
     pooled: dict[tuple[str, str], list[int]] = {}
     for row in rows:
         arm = STUDY_ARMS.get(row["strategy"])
@@ -155,12 +155,6 @@ def _short_table(cfg: StudyJob, rows: list[dict]) -> str:
 
 
 def study_job(cfg: StudyJob) -> int:
-    import torch
-
-    from qadapt.jobs.outputs import output_dir
-    from qadapt.study.filmstrip import write_filmstrips
-    from qadapt.study.report import build_report
-
     torch.set_num_threads(1)
     study_dir = output_dir(cfg.out, "study").resolve()
     study_dir.mkdir(parents=True, exist_ok=True)
@@ -197,10 +191,6 @@ def study_job(cfg: StudyJob) -> int:
 
 
 def main(argv: Sequence[str]) -> int:
-    from qadapt.config.hydra_entry import run_job
-    from qadapt.config.study_schema import register_study_schemas
-    from qadapt.config.training_schema import register_training_schemas
-
     register_training_schemas()
     register_study_schemas()
     return run_job("study", StudyJob, study_job, argv)

@@ -27,6 +27,7 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.stats import bootstrap, fisher_exact, rankdata
 
 from qadapt.stats import wilson_interval
 
@@ -142,15 +143,49 @@ def _aggregate_function(aggregate: Aggregate) -> Callable[[np.ndarray], np.ndarr
                      "reduces the last axis")
 
 
-def _percentile_interval(values: np.ndarray, confidence: float) -> tuple[float, float]:
-    tail = 100.0 * (1.0 - confidence) / 2.0
-    low, high = np.percentile(values, [tail, 100.0 - tail])
-    return float(low), float(high)
+def _independent_bootstrap(
+    samples: Sequence[np.ndarray],
+    statistic: Callable[..., np.ndarray],
+    reps: int,
+    confidence: float,
+    seed: int,
+) -> tuple[float, float]:
+    """Percentile interval of ``statistic(*draws)``, each sample resampled on its own.
 
+    ``scipy.stats.bootstrap`` with several samples and ``paired=False`` resamples every sample
+    independently with its own size, which is the stratified bootstrap (one sample per task, or
+    per task and strategy). ``statistic`` takes one (count, n_i) array per sample and returns
+    (count,). scipy refuses samples of one value; such a sample is the same in every resample
+    (and drawing indices in [0, 1) uses no random numbers), so it is passed in as a constant and
+    the other samples get the very draws they would get with it.
+    """
+    varying = [index for index, sample in enumerate(samples) if sample.size > 1]
+    if not varying:  # nothing to resample: every replicate is the statistic of the data
+        value = float(np.asarray(statistic(*[s[None, :] for s in samples])).reshape(-1)[0])
+        return value, value
 
-def _chunks(reps: int, values_per_rep: int) -> list[int]:
-    size = max(1, _BOOTSTRAP_CHUNK_VALUES // max(1, values_per_rep))
-    return [min(size, reps - start) for start in range(0, reps, size)]
+    def replicate(*draws: np.ndarray, axis: int = -1) -> np.ndarray:
+        count = draws[0].shape[0]
+        full = [sample if sample.size > 1 else np.broadcast_to(sample, (count, 1))
+                for sample in samples]
+        for index, draw in zip(varying, draws, strict=True):
+            full[index] = draw
+        return np.asarray(statistic(*full), dtype=float)
+
+    total = sum(sample.size for sample in samples)
+    result = bootstrap(
+        [samples[index] for index in varying],
+        replicate,
+        n_resamples=reps,
+        batch=max(1, _BOOTSTRAP_CHUNK_VALUES // total),
+        vectorized=True,
+        paired=False,
+        axis=-1,
+        confidence_level=confidence,
+        method="percentile",
+        random_state=np.random.default_rng(seed),
+    )
+    return float(result.confidence_interval.low), float(result.confidence_interval.high)
 
 
 # -- stratified bootstrap ----------------------------------------------------------------------
@@ -167,7 +202,9 @@ def stratified_bootstrap_interval(
     with replacement from that task's runs; the aggregate is taken over the pooled draw (as in
     the paper, where every task has the same number of runs; with unequal counts a task weighs
     in proportion to its runs). The interval is the (1-confidence)/2 and (1+confidence)/2
-    percentiles of ``reps`` replicates. Seeded: the same inputs and seed give the same interval.
+    percentiles of ``reps`` replicates, computed by ``scipy.stats.bootstrap`` (one sample per
+    task, ``paired=False``, ``method="percentile"``). Seeded: the same inputs and seed give the
+    same interval.
 
     ``scores_by_task``: task -> 1-D scores (or a list of score lists). ``aggregate``: "iqm",
     "mean", or a callable reducing the last axis of a (reps, runs) array.
@@ -183,13 +220,9 @@ def stratified_bootstrap_interval(
     tasks = list(_tasks(scores_by_task, "scores_by_task").values())
     reduce = _aggregate_function(aggregate)
     point = float(np.asarray(reduce(np.concatenate(tasks)[None, :])).reshape(-1)[0])
-    rng = np.random.default_rng(seed)
-    total = sum(task.size for task in tasks)
-    replicates = []
-    for count in _chunks(reps, total):
-        draws = [task[rng.integers(0, task.size, size=(count, task.size))] for task in tasks]
-        replicates.append(np.asarray(reduce(np.concatenate(draws, axis=1)), dtype=float))
-    low, high = _percentile_interval(np.concatenate(replicates), confidence)
+    low, high = _independent_bootstrap(
+        tasks, lambda *draws: reduce(np.concatenate(draws, axis=1)), reps, confidence, seed
+    )
     return Estimate(point, low, high)
 
 
@@ -199,8 +232,6 @@ def _improvement_probability(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
     x: (..., n), y: (..., m) -> (...). Ranks with ties averaged give U = R_x - n(n+1)/2.
     """
-    from scipy.stats import rankdata
-
     n, m = x.shape[-1], y.shape[-1]
     ranks = rankdata(np.concatenate([x, y], axis=-1), method="average", axis=-1)
     u_statistic = ranks[..., :n].sum(axis=-1) - n * (n + 1) / 2.0
@@ -219,7 +250,8 @@ def probability_of_improvement(
     Per task, P(X > Y) = (1 / (n m)) sum_i sum_j S(x_i, y_j) with S = 1 if x_i > y_j, 1/2 on a
     tie and 0 otherwise, i.e. the Mann-Whitney U statistic of X normalised by n m; the point is
     the mean over tasks. The interval comes from a stratified bootstrap that resamples X's runs
-    and Y's runs independently within each task (Agarwal et al., 2021).
+    and Y's runs independently within each task (Agarwal et al., 2021), computed by
+    ``scipy.stats.bootstrap`` (percentile method, one sample per task and strategy).
 
     ``x_by_task``, ``y_by_task``: the same tasks, each with 1-D scores (the run counts may
     differ between X and Y).
@@ -238,18 +270,15 @@ def probability_of_improvement(
                          f"{sorted(xs)}")
     names = sorted(xs)
     point = float(np.mean([_improvement_probability(xs[t], ys[t]) for t in names]))
-    rng = np.random.default_rng(seed)
-    values_per_rep = sum(xs[t].size + ys[t].size for t in names)
-    replicates = []
-    for count in _chunks(reps, values_per_rep):
-        per_task = np.zeros(count)
-        for task in names:
-            x, y = xs[task], ys[task]
-            x_draw = x[rng.integers(0, x.size, size=(count, x.size))]
-            y_draw = y[rng.integers(0, y.size, size=(count, y.size))]
+
+    def replicate(*draws: np.ndarray) -> np.ndarray:  # draws: x, y of the first task, ...
+        per_task = np.zeros(draws[0].shape[0])
+        for x_draw, y_draw in zip(draws[0::2], draws[1::2], strict=True):
             per_task += _improvement_probability(x_draw, y_draw)
-        replicates.append(per_task / len(names))
-    low, high = _percentile_interval(np.concatenate(replicates), confidence)
+        return per_task / len(names)
+
+    samples = [sample for task in names for sample in (xs[task], ys[task])]
+    low, high = _independent_bootstrap(samples, replicate, reps, confidence, seed)
     return Estimate(point, low, high)
 
 
@@ -293,8 +322,6 @@ def fisher_exact_greater(successes_a, episodes_a, successes_b, episodes_b) -> Fi
         >>> result.table, round(result.p_value, 4)
         (((3, 1), (1, 3)), 0.2429)
     """
-    from scipy.stats import fisher_exact
-
     wins_a, total_a = _pooled_count(successes_a, "successes_a"), _pooled_count(episodes_a,
                                                                                "episodes_a")
     wins_b, total_b = _pooled_count(successes_b, "successes_b"), _pooled_count(episodes_b,

@@ -19,6 +19,7 @@ import logging
 from pathlib import Path
 
 import numpy as np
+from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
 
 from qadapt.study.document import Figure, Paragraph, Section, Table
 from qadapt.study.figures import Line, Panel, line_panels, matrix_image
@@ -302,8 +303,6 @@ def read_scalars(logdir: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
 
     Returns tag -> (steps, values), steps increasing.
     """
-    from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
-
     logging.getLogger("tensorboard").setLevel(logging.WARNING)  # no line per log file
 
     accumulator = EventAccumulator(str(logdir), size_guidance={"scalars": 0})

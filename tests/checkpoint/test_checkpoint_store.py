@@ -211,7 +211,7 @@ def test_action_bound_and_kind_mismatches(saved):
 
 
 def test_dataset_space_descriptions_are_accepted(saved):
-    from qadapt.data.spaces import describe_space
+    from qadapt.spaces import describe_space
 
     path, *_ = saved
     ok = describe_space(gymnasium.spaces.Box(-np.inf, np.inf, (61,)))

@@ -9,9 +9,10 @@ import gymnasium
 import numpy as np
 import pytest
 
-from qadapt.data import check_spaces, import_arrays, open_dataset
+from qadapt.data import import_arrays, open_dataset
 from qadapt.data.writer import DatasetWriter
 from qadapt.errors import BadInput
+from qadapt.spaces import check_spaces
 
 MAPPING = {
     "observations": "s",

@@ -9,7 +9,7 @@ import sys
 import numpy as np
 
 from qadapt.data import inspect_dataset
-from qadapt.data.inspection import main
+from qadapt.jobs.inspect_job import main
 
 
 def _cli(*args):

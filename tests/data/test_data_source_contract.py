@@ -13,7 +13,6 @@ import torch
 from qadapt.data import (
     MixtureSampler,
     UniformRandomPolicy,
-    check_spaces,
     collect,
     dataset_statistics,
     import_arrays,
@@ -24,6 +23,7 @@ from qadapt.data import (
 )
 from qadapt.data.manifest import parse_manifest
 from qadapt.data.schema import FIELDS, expected_fields, expected_shape
+from qadapt.spaces import check_spaces
 
 ENV = {"id": "Pendulum-v1", "kwargs": {}, "wrappers": []}
 

@@ -1,4 +1,4 @@
-"""``qadapt evaluate``: its intervals against scipy, the job end to end, bad input, launchers."""
+"""``qadapt evaluate``: intervals by a second method, the job end to end, bad input, launchers."""
 
 from __future__ import annotations
 
@@ -8,10 +8,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 from omegaconf import OmegaConf
-from scipy.stats import binomtest, bootstrap
 
 from qadapt.stats import bootstrap_mean_interval, wilson_interval
 from tests.jobs.conftest import run_ok, run_qadapt
+from tests.test_stats import wilson_closed_form
 
 RESULT_KEYS = {"checkpoint", "checkpoint_sha256", "variation", "env", "successes", "episodes",
                "success_rate", "wilson_low", "wilson_high", "returns", "lengths", "mean_return",
@@ -46,12 +46,15 @@ def pendulum_run(tmp_path_factory) -> Path:
 @pytest.mark.parametrize(("successes", "trials"),
                          [(0, 1), (1, 1), (0, 20), (20, 20), (7, 20), (1, 200), (199, 200),
                           (0, 1000), (1000, 1000), (517, 1000)])
-def test_wilson_interval_matches_scipy_including_none_and_all(successes, trials):
-    # Reference: scipy.stats.binomtest(k, n).proportion_ci(method="wilson"), 95% by default.
-    want = binomtest(successes, trials).proportion_ci(method="wilson")
+def test_wilson_interval_matches_the_closed_form_including_none_and_all(successes, trials):
+    # Reference: the closed-form Wilson (1927) score interval as written by Agresti and Coull
+    # (1998), computed with the standard library in tests/test_stats.py; 95% by default.
+    want_low, want_high = wilson_closed_form(successes, trials, 0.95)
     low, high = wilson_interval(successes, trials)
-    assert low == pytest.approx(want.low, abs=1e-9)
-    assert high == pytest.approx(want.high, abs=1e-9)
+    assert low == pytest.approx(want_low, abs=1e-9)
+    assert high == pytest.approx(want_high, abs=1e-9)
+    # None and all: the bounds are exactly 0 and 1 (Wilson, 1927), not 0 and 1 to rounding.
+    assert (successes > 0 or low == 0.0) and (successes < trials or high == 1.0)
 
 
 @pytest.mark.parametrize("size", [1, 60, 300])  # 300 values: resampled in several blocks
@@ -62,14 +65,13 @@ def test_bootstrap_interval_holds_the_mean_and_is_seeded(size):
     assert bootstrap_mean_interval(values, seed=3) == (low, high)
     if size > 1:
         assert bootstrap_mean_interval(values, seed=4) != (low, high)
-        # Reference: scipy.stats.bootstrap(method="percentile"), the same resample count and
-        # seed; both draw integers(0, n, (resamples, n)) from default_rng(seed), so the two
-        # agree to rounding, but only Monte Carlo agreement (a few % of the width) is asserted.
-        want = bootstrap((values,), np.mean, method="percentile", n_resamples=10_000,
-                         confidence_level=0.95, rng=3).confidence_interval
-        width = want.high - want.low
-        assert low == pytest.approx(want.low, abs=0.05 * width)
-        assert high == pytest.approx(want.high, abs=0.05 * width)
+        # Reference: the percentile bootstrap (Efron, 1979) computed directly with numpy on the
+        # same resamples: 10,000 rows of integers(0, n, n) from default_rng(seed), as the
+        # docstring states, each row's mean, then the 2.5% and 97.5% quantiles of the means.
+        picks = np.random.default_rng(3).integers(0, size, size=(10_000, size))
+        want_low, want_high = np.quantile(values[picks].mean(axis=1), [0.025, 0.975])
+        assert low == pytest.approx(want_low, rel=1e-12, abs=1e-12)
+        assert high == pytest.approx(want_high, rel=1e-12, abs=1e-12)
     else:
         assert (low, high) == (values[0], values[0])
 

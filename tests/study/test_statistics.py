@@ -22,6 +22,7 @@ from qadapt.study.statistics import (
     steps_to_plateau,
     stratified_bootstrap_interval,
 )
+from tests.test_stats import wilson_closed_form
 
 
 def test_docstring_examples_hold():
@@ -69,16 +70,38 @@ def test_iqm_rejects_bad_scores(bad):
 
 
 # -- stratified bootstrap ----------------------------------------------------------------------
-def test_single_task_percentile_interval_agrees_with_scipy_bootstrap():
+def _same_resamples(seed: int, reps: int, samples) -> list[np.ndarray]:
+    """The draws the bootstrap makes: per sample in order, integers(0, n, (reps, n))."""
+    rng = np.random.default_rng(seed)
+    return [sample[rng.integers(0, sample.size, size=(reps, sample.size))] for sample in samples]
+
+
+def test_single_task_percentile_interval_agrees_with_a_direct_percentile_bootstrap():
     scores = np.random.default_rng(7).beta(4, 3, size=30)
     ours = stratified_bootstrap_interval({"task": scores}, "mean", reps=20_000, seed=1)
-    # Reference: scipy.stats.bootstrap(method="percentile"); with one stratum the stratified
-    # bootstrap is the ordinary one. Different random draws: agreement within Monte Carlo error.
-    ref = scipy_stats.bootstrap((scores,), np.mean, method="percentile", n_resamples=20_000,
-                                rng=np.random.default_rng(2)).confidence_interval
+    # Reference: the percentile bootstrap (Efron, 1979) computed directly with numpy on the same
+    # resamples; with one stratum the stratified bootstrap is the ordinary one.
+    (draws,) = _same_resamples(1, 20_000, [scores])
+    ref_low, ref_high = np.percentile(draws.mean(axis=1), [2.5, 97.5])
     assert ours.point == pytest.approx(scores.mean())
-    assert ours.low == pytest.approx(ref.low, abs=0.006)
-    assert ours.high == pytest.approx(ref.high, abs=0.006)
+    assert ours.low == pytest.approx(ref_low, abs=1e-12)
+    assert ours.high == pytest.approx(ref_high, abs=1e-12)
+
+
+def test_stratified_interval_agrees_with_a_direct_computation_on_the_same_resamples():
+    rng = np.random.default_rng(8)
+    tasks = {"a": rng.beta(4, 3, size=30), "b": np.array([0.9]), "c": rng.beta(2, 5, size=13)}
+    ours = stratified_bootstrap_interval(tasks, "iqm", reps=3000, confidence=0.9, seed=4)
+    # Reference: Agarwal et al. (2021): resample runs inside each task, pool, take the IQM, then
+    # the 5% and 95% percentiles; done here with numpy and scipy.stats.trim_mean(x, 0.25) as the
+    # IQM (equal to it since the 44 pooled runs are a multiple of 4). A one-run task is the same
+    # in every resample (and drawing from [0, 1) uses no random numbers).
+    pooled = np.concatenate(_same_resamples(4, 3000, tasks.values()), axis=1)
+    ref_low, ref_high = np.percentile(scipy_stats.trim_mean(pooled, 0.25, axis=1), [5.0, 95.0])
+    assert ours.point == pytest.approx(scipy_stats.trim_mean(np.concatenate(list(
+        tasks.values())), 0.25))
+    assert ours.low == pytest.approx(ref_low, abs=1e-12)
+    assert ours.high == pytest.approx(ref_high, abs=1e-12)
 
 
 def test_bootstrap_resamples_within_each_task():
@@ -140,6 +163,23 @@ def test_probability_of_improvement_of_clearly_better_runs_and_equal_runs():
     assert better.as_tuple() == (1.0, 1.0, 1.0)
     same = probability_of_improvement({"a": [0.5, 0.5]}, {"a": [0.5, 0.5, 0.5]}, reps=200)
     assert same.as_tuple() == (0.5, 0.5, 0.5)  # all ties count 1/2
+
+
+def test_probability_of_improvement_interval_agrees_with_a_direct_computation():
+    x = {"b": [0.2, 0.9, 0.4, 0.4], "a": [0.5, 0.7, 0.6], "c": [0.3]}
+    y = {"b": [0.1, 0.4, 0.8], "a": [0.6, 0.2, 0.3, 0.1, 0.5], "c": [0.2, 0.6]}
+    ours = probability_of_improvement(x, y, reps=800, seed=3)
+    # Reference: the definition of Agarwal et al. (2021), S = 1 if x_i > y_j, 1/2 on a tie,
+    # averaged over all pairs, then over tasks, counted pair by pair with numpy (no ranks) on
+    # the same resamples (tasks in sorted order, X's runs then Y's runs), percentile interval.
+    samples = [np.asarray(d[t], dtype=float) for t in sorted(x) for d in (x, y)]
+    draws = _same_resamples(3, 800, samples)
+    per_task = [((xd[:, :, None] > yd[:, None, :]) + 0.5 * (xd[:, :, None] == yd[:, None, :]))
+                .mean(axis=(1, 2)) for xd, yd in zip(draws[0::2], draws[1::2], strict=True)]
+    replicates = np.mean(per_task, axis=0)
+    ref_low, ref_high = np.percentile(replicates, [2.5, 97.5])
+    assert ours.low == pytest.approx(ref_low, abs=1e-12)
+    assert ours.high == pytest.approx(ref_high, abs=1e-12)
 
 
 def test_probability_of_improvement_needs_the_same_tasks():
@@ -207,14 +247,14 @@ def test_transfer_ignores_unused_cells_and_rejects_missing_ones():
 
 
 # -- data budget -------------------------------------------------------------------------------
-def test_budget_table_pools_and_matches_scipy_wilson():
+def test_budget_table_pools_and_matches_the_closed_form_wilson():
     points = budget_table([(100, 9, 10), (50, 3, 10), (50, 5, 10)])
     assert [(p.budget, p.successes, p.episodes) for p in points] == [(50, 8, 20), (100, 9, 10)]
     for point in points:
-        # Reference: scipy.stats.binomtest(...).proportion_ci(method="wilson").
-        want = scipy_stats.binomtest(point.successes, point.episodes).proportion_ci(
-            method="wilson")
-        assert (point.low, point.high) == pytest.approx((want.low, want.high))
+        # Reference: the closed-form Wilson (1927) score interval as written by Agresti and
+        # Coull (1998), computed with the standard library in tests/test_stats.py.
+        want = wilson_closed_form(point.successes, point.episodes, 0.95)
+        assert (point.low, point.high) == pytest.approx(want)
 
 
 def test_smallest_clearing_budget_by_hand():

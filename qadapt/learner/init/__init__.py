@@ -12,8 +12,8 @@ Holds (each from its own module):
         [regression]
     episode_ends, discounted_return_to_go, dataset_return_to_go -- Monte-Carlo return-to-go
         [return_to_go]
-    INIT_STRATEGIES, init_strategy -- name -> strategy; ``init=NAME`` [registry]
-    InitSettings -- the ``init`` config node [settings]
+    INIT_STRATEGIES -- name -> strategy class [registry]
+    InitSettings, init_strategy -- the ``init`` config node; ``init=NAME`` -> strategy [settings]
 
 Adding a strategy: a class with the contract's claims (``uses_base_statistics``,
 ``base_parts``, ``frozen_parts``, ``gives_anchor``, ``needs_prior``), an entry in the
@@ -30,7 +30,7 @@ from qadapt.learner.init.contract import (
     InitStrategy,
     network_part,
 )
-from qadapt.learner.init.registry import INIT_STRATEGIES, init_strategy
+from qadapt.learner.init.registry import INIT_STRATEGIES
 from qadapt.learner.init.regression import (
     RegressionSettings,
     ReturnRegressionData,
@@ -42,7 +42,7 @@ from qadapt.learner.init.return_to_go import (
     episode_ends,
 )
 from qadapt.learner.init.scratch import FromScratch
-from qadapt.learner.init.settings import InitSettings
+from qadapt.learner.init.settings import InitSettings, init_strategy
 from qadapt.learner.init.torso import FrozenTorso, TorsoTransfer
 from qadapt.learner.init.warm import AnchoredWarmStart, WarmStart
 

@@ -4,13 +4,16 @@ Holds:
     InitSettings -- strategy name (checked against the registry) plus the settings of the
         strategies that have any (the auxiliary start's regression phase, shrink and
         perturb's factors).
+    init_strategy -- the configured strategy for an ``InitSettings`` node (or a bare name).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 from qadapt.errors import BadInput
+from qadapt.learner.init.contract import InitStrategy
 from qadapt.learner.init.registry import INIT_STRATEGIES
 from qadapt.learner.init.regression import RegressionSettings
 from qadapt.learner.init.shrink_perturb import ShrinkSettings
@@ -57,3 +60,19 @@ frozen_torso, auxiliary, anchored, shrink_perturb
                            "learner.anchor_weight=0")
         if strategy.needs_prior and not has_prior:
             raise BadInput(f"init: '{self.name}' trains on the prior data; give prior=...")
+
+
+def init_strategy(settings: Any) -> InitStrategy:
+    """The strategy ``settings.name`` names, configured from ``settings`` (an InitSettings);
+    a plain name gives the strategy with its default settings.
+
+    Example:
+        >>> init_strategy("frozen_torso").frozen_parts
+        frozenset({'torso'})
+    """
+    if isinstance(settings, str):
+        settings = InitSettings(name=settings)
+    name = settings.name
+    if name not in INIT_STRATEGIES:
+        raise BadInput(f"init: got {name!r}, expected one of {', '.join(INIT_STRATEGIES)}")
+    return INIT_STRATEGIES[name].from_settings(settings)

@@ -16,9 +16,13 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from hydra.core.config_store import ConfigStore
+
+from qadapt import layout
 from qadapt.config.compose import variation_by_name
 from qadapt.config.schema import _positive_int
 from qadapt.errors import BadInput
+from qadapt.learner.source_indicator import INDICATOR_KINDS
 from qadapt.study.arms import study_arm
 
 
@@ -182,8 +186,6 @@ class StudyJob:
                 raise BadInput(f"shares.values: got {value!r}, expected new-data shares in "
                                "(0, 1]")
         if self.indicators.kinds:
-            from qadapt.learner.source_indicator import INDICATOR_KINDS
-
             variation_by_name(self.indicators.variation, key="indicators.variation")
             for kind in self.indicators.kinds:
                 if kind not in INDICATOR_KINDS[1:]:
@@ -224,7 +226,7 @@ class CellJob:
     cell: str = "???"
 
     def __post_init__(self) -> None:
-        if not (Path(self.study) / "cells.json").is_file():
+        if not (Path(self.study) / layout.PLAN).is_file():
             raise BadInput(f"study: {self.study} holds no cells.json (run qadapt study first)")
 
 
@@ -235,8 +237,6 @@ STUDY_SCHEMAS: dict[str, tuple[str | None, type]] = {
 
 
 def register_study_schemas() -> None:
-    from hydra.core.config_store import ConfigStore
-
     store = ConfigStore.instance()
     for name, (group, node) in STUDY_SCHEMAS.items():
         store.store(name=name, node=node, group=group)

@@ -1,9 +1,9 @@
-"""File handling for dataset directories: safe member paths, durable writes, checksums.
+"""Files on disk: safe member paths, durable writes, checksums; the one place for each.
 
 Holds:
     resolve_member -- the path of a file a manifest names, refusing anything outside the directory.
     fsync_file / fsync_directory -- flush a file's or a directory's contents to the disk.
-    write_text_durably -- write a small text file and flush it to the disk.
+    write_text_durably -- replace a small text file atomically and flush it to the disk.
     sha256_of_file -- the SHA-256 of a file, read in blocks (no memory map, no whole-file read).
     remove_tree -- delete a directory this package created (refuses symlinks).
 """
@@ -13,6 +13,7 @@ from __future__ import annotations
 import hashlib
 import os
 import shutil
+import tempfile
 from pathlib import Path
 
 from qadapt.errors import BadInput
@@ -80,11 +81,29 @@ def fsync_directory(path: Path) -> None:
 
 
 def write_text_durably(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` (UTF-8) and fsync it; the caller fsyncs the directory."""
-    with open(path, "w", encoding="utf-8") as handle:
-        handle.write(text)
-        handle.flush()
-        os.fsync(handle.fileno())
+    """Replace ``path`` with ``text`` (UTF-8) all at once: a hidden temporary file beside it
+    (``.NAME.writing-*``) is written and fsynced, renamed onto ``path``, and the directory is
+    fsynced. A reader sees the old file or the new one, never a half-written one.
+
+    Example:
+        >>> import tempfile
+        >>> target = Path(tempfile.mkdtemp()) / "summary.json"
+        >>> write_text_durably(target, '{"step": 1}')
+        >>> target.read_text(), sorted(p.name for p in target.parent.iterdir())
+        ('{"step": 1}', ['summary.json'])
+    """
+    path = Path(path)
+    descriptor, temporary = tempfile.mkstemp(prefix=f".{path.name}.writing-", dir=path.parent)
+    try:
+        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        Path(temporary).unlink(missing_ok=True)
+        raise
+    fsync_directory(path.parent)
 
 
 def sha256_of_file(path: Path) -> str:
