@@ -17,6 +17,7 @@ from typing import Any
 import gymnasium
 import numpy as np
 
+from qadapt.checks import positive_int
 from qadapt.errors import BadInput
 
 _FLOAT_DTYPES = ("float16", "float32", "float64")
@@ -141,12 +142,6 @@ def describe_space(space: gymnasium.Space, *, role: str = "space") -> SpaceDescr
     )
 
 
-def _positive_int(value: object, where: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-        raise BadInput(f"{where}: got {value!r}, expected a positive integer")
-    return value
-
-
 def parse_space(value: object, *, where: str) -> SpaceDescription:
     """Parse and validate a space description from a manifest (the form ``to_json`` gives)."""
     if not isinstance(value, dict):
@@ -158,7 +153,7 @@ def parse_space(value: object, *, where: str) -> SpaceDescription:
         start = value["start"]
         if isinstance(start, bool) or not isinstance(start, int):
             raise BadInput(f"{where}.start: got {start!r}, expected an integer")
-        return DiscreteDescription(n=_positive_int(value["n"], f"{where}.n"), start=start)
+        return DiscreteDescription(n=positive_int(f"{where}.n", value["n"], BadInput), start=start)
     if kind != "box":
         raise BadInput(f"{where}.type: got {kind!r}, expected 'box' or 'discrete'")
     if set(value) != {"type", "shape", "dtype", "low", "high"}:
@@ -166,7 +161,7 @@ def parse_space(value: object, *, where: str) -> SpaceDescription:
     shape = value["shape"]
     if not isinstance(shape, list) or len(shape) != 1:
         raise BadInput(f"{where}.shape: got {shape!r}, expected a one-element list [d]")
-    width = _positive_int(shape[0], f"{where}.shape[0]")
+    width = positive_int(f"{where}.shape[0]", shape[0], BadInput)
     dtype = value["dtype"]
     if dtype not in _FLOAT_DTYPES:
         raise BadInput(f"{where}.dtype: got {dtype!r}, expected one of {list(_FLOAT_DTYPES)}")

@@ -25,7 +25,16 @@ from hydra.core.global_hydra import GlobalHydra
 from qadapt.config.schema import register_schemas, to_typed
 from qadapt.errors import BadInput, TrainingFailed
 
-CONFIG_DIR = Path(__file__).resolve().parents[2] / "configs"
+
+def _config_dir() -> Path:
+    """configs/ inside the installed package (a wheel ships it as qadapt/configs), else the
+    one at the top of the source tree (a checkout or an editable install)."""
+    package = Path(__file__).resolve().parents[1]
+    packaged = package / "configs"
+    return packaged if packaged.is_dir() else package.parent / "configs"
+
+
+CONFIG_DIR = _config_dir()
 # A ``_target_`` key inside a dict value (``key={_target_: os.system}``), not in a path.
 _TARGET_IN_VALUE = re.compile(r"(^|[{,\s])['\"]?_target_['\"]?\s*:")
 HYDRA_FLAGS_WITH_VALUE = {"--cfg", "-c", "--package", "-p", "--config-name", "-cn",

@@ -23,21 +23,19 @@ from typing import Any
 from hydra.core.config_store import ConfigStore
 from omegaconf import DictConfig, OmegaConf
 
+from qadapt.checks import non_negative_int, positive_int
 from qadapt.errors import BadInput
 
 PICK_CELL = "demo_envs/PickCell-v0"
 
 
 def _positive_int(key: str, value: object, allow_none: bool = False) -> None:
-    if value is None and allow_none:
-        return
-    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-        raise BadInput(f"{key}: got {value!r}, expected a positive integer")
+    if not (value is None and allow_none):
+        positive_int(key, value, BadInput)
 
 
 def _non_negative_int(key: str, value: object) -> None:
-    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
-        raise BadInput(f"{key}: got {value!r}, expected a non-negative integer")
+    non_negative_int(key, value, BadInput)
 
 
 @dataclass

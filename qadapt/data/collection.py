@@ -22,6 +22,7 @@ import numpy as np
 from gymnasium.vector import AutoresetMode
 from tqdm import tqdm
 
+from qadapt.checks import positive_int
 from qadapt.data.dataset import open_dataset
 from qadapt.data.manifest import EnvironmentRecord
 from qadapt.data.policy import Policy
@@ -71,12 +72,6 @@ class CollectionSummary:
         )
 
 
-def _positive(value: object, name: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
-        raise BadInput(f"{name}: got {value!r}, expected a positive integer")
-    return int(value)
-
-
 def _run_digest(description: dict[str, Any]) -> str:
     text = json.dumps(description, sort_keys=True, allow_nan=False, separators=(",", ":"))
     return hashlib.sha256(text.encode()).hexdigest()
@@ -105,8 +100,8 @@ def episode_quotas(episodes: int, count: int) -> np.ndarray:
         >>> episode_quotas(10, 4).tolist(), episode_quotas(2, 4).tolist()
         ([3, 3, 2, 2], [1, 1, 0, 0])
     """
-    episodes = _positive(episodes, "episodes")
-    count = _positive(count, "count")
+    episodes = positive_int("episodes", episodes, BadInput)
+    count = positive_int("count", count, BadInput)
     base, extra = divmod(episodes, count)
     quotas = np.full(count, base, dtype=np.int64)
     quotas[:extra] += 1
@@ -206,9 +201,10 @@ def collect(
     started = time.perf_counter()
     if (episodes is None) == (transitions is None):
         raise BadInput("collect: give exactly one of episodes= or transitions=")
-    target_episodes = None if episodes is None else _positive(episodes, "episodes")
-    target_transitions = None if transitions is None else _positive(transitions, "transitions")
-    chunk_transitions = _positive(chunk_transitions, "chunk_transitions")
+    target_episodes = None if episodes is None else positive_int("episodes", episodes, BadInput)
+    target_transitions = (None if transitions is None
+                          else positive_int("transitions", transitions, BadInput))
+    chunk_transitions = positive_int("chunk_transitions", chunk_transitions, BadInput)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise BadInput(f"seed: got {seed!r}, expected a non-negative integer")
     if not isinstance(vector_env, gymnasium.vector.VectorEnv):

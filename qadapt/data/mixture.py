@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 import torch
 
+from qadapt.checks import positive_int
 from qadapt.data.batch import ReplayBatch
 from qadapt.data.block_pool import BlockPool
 from qadapt.data.gather import SAMPLED_FIELDS, InMemoryRows, MappedRows, WindowedRows
@@ -23,12 +24,6 @@ from qadapt.errors import BadInput
 _STATE_VERSION = 1
 _ALIGN = 64
 _MIN_MEMORY_LIMIT = 16 << 20
-
-
-def _positive_int(value: object, name: str) -> int:
-    if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
-        raise BadInput(f"{name}: got {value!r}, expected a positive integer")
-    return int(value)
 
 
 class MixtureSampler:
@@ -90,7 +85,7 @@ class MixtureSampler:
         if isinstance(datasets, str | bytes) or not isinstance(datasets, Sequence) or not datasets:
             raise BadInput(f"datasets: got {datasets!r}, expected a non-empty list of datasets")
         self.datasets = list(datasets)
-        self.batch_size = _positive_int(batch_size, "batch_size")
+        self.batch_size = positive_int("batch_size", batch_size, BadInput)
         if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
             raise BadInput(f"seed: got {seed!r}, expected a non-negative integer")
         self.seed = int(seed)
@@ -109,7 +104,7 @@ class MixtureSampler:
         self.schedule = schedule
         self._check_compatible()
         if memory_limit_bytes is not None:
-            memory_limit_bytes = _positive_int(memory_limit_bytes, "memory_limit_bytes")
+            memory_limit_bytes = positive_int("memory_limit_bytes", memory_limit_bytes, BadInput)
             if memory_limit_bytes < _MIN_MEMORY_LIMIT:
                 raise BadInput(
                     f"memory_limit_bytes: got {memory_limit_bytes}, expected at least "
@@ -132,12 +127,14 @@ class MixtureSampler:
             # caller may still hold, a quarter for the gather's scratch and a quarter for the
             # file window. Blocks as large as that allows: each block reads the files once.
             fit = max(1, memory_limit_bytes // 4 // (self._row_bytes * self.batch_size))
-            wanted = fit if block_batches is None else _positive_int(block_batches, "block_batches")
+            wanted = (fit if block_batches is None
+                      else positive_int("block_batches", block_batches, BadInput))
             block_batches = min(wanted, fit)
             self._sources = [WindowedRows(d, memory_limit_bytes // 4) for d in self.datasets]
         else:
             block_batches = (
-                64 if block_batches is None else _positive_int(block_batches, "block_batches")
+                64 if block_batches is None
+                else positive_int("block_batches", block_batches, BadInput)
             )
             row_source = InMemoryRows if self.in_memory else MappedRows
             self._sources = [row_source(d) for d in self.datasets]

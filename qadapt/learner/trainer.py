@@ -123,12 +123,6 @@ def _prefixed(prefix: str, state: dict[str, torch.Tensor]) -> dict[str, torch.Te
     return {f"{prefix}.{name}": tensor.detach().contiguous() for name, tensor in state.items()}
 
 
-def unprefixed(weights: dict[str, torch.Tensor], prefix: str) -> dict[str, torch.Tensor]:
-    """The entries of ``weights`` under ``prefix.``, with the prefix removed."""
-    start = len(prefix) + 1
-    return {k[start:]: v for k, v in weights.items() if k.startswith(prefix + ".")}
-
-
 class Trainer:
     """Runs ``plan.steps`` gradient steps of ``learner`` on batches from ``sampler``.
 

@@ -1,8 +1,7 @@
 """Argument checks the maximisers share; each raises ValueError naming the parameter.
 
 Holds:
-    positive_int -- an int >= 1 (bools refused).
-    positive_float -- a finite real number > 0.
+    positive_int, positive_float -- from qadapt.checks (re-exported for the maximisers).
     check_batch_size -- the ``batch_size`` argument of ``maximize``.
     check_initial -- a warm-start tensor of shape [B, A] with finite entries, as float32.
     check_scores -- the output of a score function: shape [B, K], floating, no NaN.
@@ -11,27 +10,11 @@ Holds:
 
 from __future__ import annotations
 
-import math
-import numbers
 from collections.abc import Iterable
 
 import torch
 
-
-def positive_int(name: str, value: object) -> int:
-    """Return ``value`` as an int if it is an integer >= 1, else raise ValueError."""
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1:
-        raise ValueError(f"{name}: got {value!r}, expected a positive integer")
-    return int(value)
-
-
-def positive_float(name: str, value: object) -> float:
-    """Return ``value`` as a float if it is a finite real number > 0, else raise ValueError."""
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ValueError(f"{name}: got {value!r}, expected a finite number > 0")
-    if not math.isfinite(value) or value <= 0:
-        raise ValueError(f"{name}: got {value!r}, expected a finite number > 0")
-    return float(value)
+from qadapt.checks import positive_float, positive_int  # noqa: F401 (re-exported)
 
 
 def check_batch_size(batch_size: object) -> int:
