@@ -872,7 +872,7 @@ def _collect_onto_non_dataset(ws, scratch):
              "progress=false"], [str(folder)])
 
 
-# Evaluate (rows join the table once qadapt.cli.JOBS lists the job) ---------------------------
+# Evaluate ------------------------------------------------------------------------------------
 @case("checkpoint", "evaluate")
 def _evaluate_truncated_weights(ws, scratch):
     """evaluate: truncated weights.safetensors"""
@@ -912,7 +912,65 @@ def _evaluate_output_parent_is_file(ws, scratch):
             [str(blocker)])
 
 
-# Chain: add rows here with job="chain" (they join once qadapt.cli.JOBS lists the job).
+# Chain ---------------------------------------------------------------------------------------
+def _chain(ws: Workspace, scratch: Path, *extra: str) -> list[str]:
+    return ["chain", f"base={ws.best}", f"prior={ws.dataset}", "variations=[finger_offset]",
+            "episodes=2", "steps=5", "eval_episodes=2", f"out={scratch / 'out'}", *extra]
+
+
+@case("config", "chain")
+def _chain_unknown_variation(ws, scratch):
+    """chain: unknown variation in the list"""
+    return _chain(ws, scratch, "variations=[finger_offset,sideways]"), ["sideways"]
+
+
+@case("config", "chain")
+def _chain_zero_rounds(ws, scratch):
+    """chain: zero rounds"""
+    return _chain(ws, scratch, "rounds=0"), ["rounds", "0"]
+
+
+@case("checkpoint", "chain")
+def _chain_base_not_a_checkpoint(ws, scratch):
+    """chain: base is a folder that is neither a checkpoint nor a run"""
+    folder = scratch / "empty"
+    folder.mkdir()
+    return _chain(ws, scratch, f"base={folder}"), [str(folder)]
+
+
+@case("config", "chain")
+def _chain_unknown_earlier_rounds(ws, scratch):
+    """chain: earlier_rounds names no data side"""
+    return _chain(ws, scratch, "earlier_rounds=sideways"), ["earlier_rounds", "sideways"]
+
+
+# Study ---------------------------------------------------------------------------------------
+def _study(scratch: Path, *extra: str) -> list[str]:
+    return ["study", "grid=quick", "launcher=local", f"out={scratch / 'out'}", *extra]
+
+
+@case("config", "study")
+def _study_unknown_strategy(ws, scratch):
+    """study: unknown strategy"""
+    return _study(scratch, "strategies=[warm,sideways]"), ["strategies", "sideways"]
+
+
+@case("config", "study")
+def _study_unknown_variation(ws, scratch):
+    """study: unknown variation"""
+    return _study(scratch, "variations=[sideways]"), ["sideways"]
+
+
+@case("config", "study")
+def _study_zero_seeds(ws, scratch):
+    """study: an empty seed list"""
+    return _study(scratch, "seeds=[]"), ["seeds"]
+
+
+@case("config", "study")
+def _study_one_round(ws, scratch):
+    """study: rounds of adaptation with a single round"""
+    return _study(scratch, "rounds.count=1"), ["rounds.count"]
 
 
 # -- running a row ---------------------------------------------------------------------------
