@@ -5,6 +5,7 @@ Holds:
     DiscreteDescription -- a gymnasium Discrete: n choices starting at ``start``.
     describe_space -- the description of a gymnasium space (Box with 1-D shape, or Discrete).
     parse_space -- a description from its JSON form, validated.
+    space_difference -- the first way two space descriptions differ (one bound tolerance).
     check_spaces -- BadInput unless a dataset's spaces match given gymnasium spaces.
 """
 
@@ -183,31 +184,63 @@ def _shape_text(description: SpaceDescription) -> str:
     return f"Discrete of n={description.n} (stored as shape (1,))"
 
 
+# Box bounds agree to a relative 1e-6: float32 keeps about 7 significant digits, so a float32
+# and a float64 copy of the same bounds compare equal (common practice).
+BOUND_TOLERANCE = 1e-6
+
+
+def space_difference(a: SpaceDescription, b: SpaceDescription) -> tuple[str, int | None] | None:
+    """The first way two space descriptions differ, or None when they match.
+
+    Returns ("kind", None) for Box against Discrete, ("choices", None) for Discrete spaces with
+    other ``n`` or ``start``, ("shape", None), or ("bounds", i) for the first dimension whose
+    bounds differ by more than ``BOUND_TOLERANCE`` (relative). Dtypes are not compared: replay
+    data and networks work in float32 whatever the space says. The one comparison behind
+    ``check_spaces`` and the checkpoint's space check.
+
+    Example:
+        >>> box = describe_space(gymnasium.spaces.Box(-1.0, 1.0, (2,), dtype=np.float64))
+        >>> same = describe_space(gymnasium.spaces.Box(-1.0, 1.0, (2,), dtype=np.float32))
+        >>> space_difference(box, same) is None
+        True
+        >>> space_difference(box, describe_space(gymnasium.spaces.Box(-1.0, 2.0, (2,))))
+        ('bounds', 0)
+    """
+    if type(a) is not type(b):
+        return ("kind", None)
+    if isinstance(a, DiscreteDescription):
+        return None if (a.n, a.start) == (b.n, b.start) else ("choices", None)
+    if a.shape != b.shape:
+        return ("shape", None)
+    for i in range(a.width):
+        pairs = zip((a.low[i], a.high[i]), (b.low[i], b.high[i]), strict=True)
+        if not all(math.isclose(x, y, rel_tol=BOUND_TOLERANCE) for x, y in pairs):
+            return ("bounds", i)
+    return None
+
+
 def _mismatch(
     described: SpaceDescription, expected: SpaceDescription, *, role: str, source: str, what: str
 ) -> str | None:
-    if type(described) is not type(expected) or described.width != expected.width:
+    difference = space_difference(described, expected)
+    if difference is None:
+        return None
+    kind, i = difference
+    if kind in ("kind", "shape"):
         return (
             f"{source}: {role} mismatch: the dataset has a {_shape_text(described)} "
             f"but the {what} has a {_shape_text(expected)}"
         )
-    if isinstance(described, DiscreteDescription):
-        if (described.n, described.start) != (expected.n, expected.start):
-            return (
-                f"{source}: {role} mismatch: the dataset has {described.label()} "
-                f"but the {what} has {expected.label()}"
-            )
-        return None
-    for i in range(described.width):
-        pair_a = (described.low[i], described.high[i])
-        pair_b = (expected.low[i], expected.high[i])
-        if pair_a != pair_b:
-            return (
-                f"{source}: {role} mismatch at dimension {i}: bounds {list(pair_a)} in the "
-                f"dataset (shape {described.shape}) but {list(pair_b)} in the {what} "
-                f"(shape {expected.shape})"
-            )
-    return None
+    if kind == "choices":
+        return (
+            f"{source}: {role} mismatch: the dataset has {described.label()} "
+            f"but the {what} has {expected.label()}"
+        )
+    return (
+        f"{source}: {role} mismatch at dimension {i}: bounds "
+        f"{[described.low[i], described.high[i]]} in the dataset (shape {described.shape}) but "
+        f"{[expected.low[i], expected.high[i]]} in the {what} (shape {expected.shape})"
+    )
 
 
 def check_spaces(
@@ -218,10 +251,11 @@ def check_spaces(
 ) -> None:
     """Raise BadInput unless ``dataset``'s recorded spaces match the given gymnasium spaces.
 
-    Compares kind (Box/Discrete), shape and per-dimension bounds (dtypes are not compared:
-    dataset arrays are float32 whatever the space's dtype). ``what`` names the other side in
-    the message ("env", "checkpoint", ...). ``dataset`` is anything with ``observation_space``
-    and ``action_space`` descriptions and a ``path`` (a ReplayDataset).
+    Compares kind (Box/Discrete), shape and per-dimension bounds with ``space_difference``
+    (dtypes are not compared: dataset arrays are float32 whatever the space's dtype).
+    ``what`` names the other side in the message ("env", "checkpoint", ...). ``dataset`` is
+    anything with ``observation_space`` and ``action_space`` descriptions and a ``path`` (a
+    ReplayDataset).
 
     Example:
         >>> class Recorded:  # stands in for a ReplayDataset

@@ -3,23 +3,20 @@
 Holds:
     check_checkpoint_spaces -- BadInput naming both shapes unless the recorded spaces match.
 
-Compared: the kind (Box or Discrete), the shape, the choices of a Discrete and the bounds of a
-Box (to a relative 1e-6, so a float32 and a float64 copy of the same bounds agree). Dtypes are
-not compared: replay data and networks work in float32 whatever the space says.
+Compared by ``qadapt.spaces.space_difference``, the one comparison datasets use too: the kind
+(Box or Discrete), the shape, the choices of a Discrete and the bounds of a Box (to a relative
+1e-6). Dtypes are not compared.
 """
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 from typing import Any
 
 import gymnasium
 
 from qadapt.errors import BadInput
-from qadapt.spaces import BoxDescription, DiscreteDescription, describe_space
-
-_BOUND_TOLERANCE = 1e-6  # common practice: float32 keeps about 7 significant digits
+from qadapt.spaces import BoxDescription, DiscreteDescription, describe_space, space_difference
 
 
 def _described(space: Any, role: str) -> BoxDescription | DiscreteDescription:
@@ -46,35 +43,25 @@ def _mismatch(
     where: str,
     what: str,
 ) -> str | None:
-    if type(trained) is not type(other):
+    difference = space_difference(trained, other)
+    if difference is None:
+        return None
+    kind, i = difference
+    if kind in ("kind", "choices"):
         return (
             f"{where} was trained for {noun} in {_kind_text(trained)}, "
             f"the {what} has {_kind_text(other)}"
         )
-    if isinstance(trained, DiscreteDescription):
-        if (trained.n, trained.start) != (other.n, other.start):
-            return (
-                f"{where} was trained for {noun} in {_kind_text(trained)}, "
-                f"the {what} has {_kind_text(other)}"
-            )
-        return None
-    if trained.shape != other.shape:
+    if kind == "shape":
         return (
             f"{where} was trained for {noun} of shape {trained.shape}, "
             f"the {what} has {other.shape}"
         )
-    for i in range(trained.width):
-        mine = (trained.low[i], trained.high[i])
-        theirs = (other.low[i], other.high[i])
-        if not all(
-            math.isclose(a, b, rel_tol=_BOUND_TOLERANCE) for a, b in zip(mine, theirs, strict=True)
-        ):
-            return (
-                f"{where} was trained for {noun} of shape {trained.shape} with bounds "
-                f"{list(mine)} in dimension {i}, the {what} has shape {other.shape} with bounds "
-                f"{list(theirs)} there"
-            )
-    return None
+    return (
+        f"{where} was trained for {noun} of shape {trained.shape} with bounds "
+        f"{[trained.low[i], trained.high[i]]} in dimension {i}, the {what} has shape "
+        f"{other.shape} with bounds {[other.low[i], other.high[i]]} there"
+    )
 
 
 def check_checkpoint_spaces(
