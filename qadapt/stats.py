@@ -2,11 +2,14 @@
 
 Holds:
     wilson_interval -- the Wilson score interval for a binomial success rate.
+    percentile_bootstrap -- a seeded percentile-bootstrap interval of a statistic of samples
+        resampled independently (one sample, or one per stratum).
     bootstrap_mean_interval -- a seeded percentile-bootstrap interval for the mean of a sample.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from functools import lru_cache
 
 import numpy as np
@@ -62,6 +65,53 @@ def _scipy_wilson(successes: int, trials: int, confidence: float) -> tuple[float
 _BOOTSTRAP_BLOCK = 2**20
 
 
+def percentile_bootstrap(
+    samples: Sequence[np.ndarray],
+    statistic: Callable[..., np.ndarray],
+    reps: int,
+    confidence: float,
+    seed: int,
+    values_per_batch: int = 2**20,
+) -> tuple[float, float]:
+    """Percentile interval (Efron, 1979) of ``statistic(*draws)``, each sample resampled on its
+    own; ``values_per_batch`` bounds the resampled values held in memory at once.
+
+    ``scipy.stats.bootstrap`` with several samples and ``paired=False`` resamples every sample
+    independently with its own size, which is the stratified bootstrap (one sample per task, or
+    per task and strategy). ``statistic`` takes one (count, n_i) array per sample and returns
+    (count,). scipy refuses samples of one value; such a sample is the same in every resample
+    (and drawing indices in [0, 1) uses no random numbers), so it is passed in as a constant and
+    the other samples get the very draws they would get with it.
+    """
+    varying = [index for index, sample in enumerate(samples) if sample.size > 1]
+    if not varying:  # nothing to resample: every replicate is the statistic of the data
+        value = float(np.asarray(statistic(*[s[None, :] for s in samples])).reshape(-1)[0])
+        return value, value
+
+    def replicate(*draws: np.ndarray, axis: int = -1) -> np.ndarray:
+        count = draws[0].shape[0]
+        full = [sample if sample.size > 1 else np.broadcast_to(sample, (count, 1))
+                for sample in samples]
+        for index, draw in zip(varying, draws, strict=True):
+            full[index] = draw
+        return np.asarray(statistic(*full), dtype=float)
+
+    total = sum(sample.size for sample in samples)
+    result = bootstrap(
+        [samples[index] for index in varying],
+        replicate,
+        n_resamples=reps,
+        batch=max(1, values_per_batch // total),
+        vectorized=True,
+        paired=False,
+        axis=-1,
+        confidence_level=confidence,
+        method="percentile",
+        random_state=np.random.default_rng(seed),
+    )
+    return float(result.confidence_interval.low), float(result.confidence_interval.high)
+
+
 def bootstrap_mean_interval(
     values, confidence: float = 0.95, resamples: int = 10_000, seed: int = 0
 ) -> tuple[float, float]:
@@ -90,18 +140,5 @@ def bootstrap_mean_interval(
         raise ValueError(f"confidence: got {confidence!r}, expected a number in (0, 1)")
     if isinstance(resamples, bool) or not isinstance(resamples, int) or resamples < 1:
         raise ValueError(f"resamples: got {resamples!r}, expected a positive integer")
-    if sample.size == 1:  # every resample is the one value (scipy needs two or more)
-        return float(sample[0]), float(sample[0])
-
-    result = bootstrap(
-        (sample,),
-        np.mean,
-        n_resamples=resamples,
-        batch=max(1, _BOOTSTRAP_BLOCK // sample.size),
-        vectorized=True,
-        axis=-1,
-        confidence_level=confidence,
-        method="percentile",
-        random_state=np.random.default_rng(seed),
-    )
-    return float(result.confidence_interval.low), float(result.confidence_interval.high)
+    return percentile_bootstrap([sample], lambda draws: np.mean(draws, axis=-1), resamples,
+                                confidence, seed, _BOOTSTRAP_BLOCK)

@@ -27,9 +27,9 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import bootstrap, fisher_exact, rankdata
+from scipy.stats import fisher_exact, rankdata
 
-from qadapt.stats import wilson_interval
+from qadapt.stats import percentile_bootstrap, wilson_interval
 
 ScoresByTask = Mapping[str, Sequence[float] | np.ndarray] | Sequence[Sequence[float] | np.ndarray]
 Aggregate = str | Callable[[np.ndarray], np.ndarray]
@@ -143,51 +143,6 @@ def _aggregate_function(aggregate: Aggregate) -> Callable[[np.ndarray], np.ndarr
                      "reduces the last axis")
 
 
-def _independent_bootstrap(
-    samples: Sequence[np.ndarray],
-    statistic: Callable[..., np.ndarray],
-    reps: int,
-    confidence: float,
-    seed: int,
-) -> tuple[float, float]:
-    """Percentile interval of ``statistic(*draws)``, each sample resampled on its own.
-
-    ``scipy.stats.bootstrap`` with several samples and ``paired=False`` resamples every sample
-    independently with its own size, which is the stratified bootstrap (one sample per task, or
-    per task and strategy). ``statistic`` takes one (count, n_i) array per sample and returns
-    (count,). scipy refuses samples of one value; such a sample is the same in every resample
-    (and drawing indices in [0, 1) uses no random numbers), so it is passed in as a constant and
-    the other samples get the very draws they would get with it.
-    """
-    varying = [index for index, sample in enumerate(samples) if sample.size > 1]
-    if not varying:  # nothing to resample: every replicate is the statistic of the data
-        value = float(np.asarray(statistic(*[s[None, :] for s in samples])).reshape(-1)[0])
-        return value, value
-
-    def replicate(*draws: np.ndarray, axis: int = -1) -> np.ndarray:
-        count = draws[0].shape[0]
-        full = [sample if sample.size > 1 else np.broadcast_to(sample, (count, 1))
-                for sample in samples]
-        for index, draw in zip(varying, draws, strict=True):
-            full[index] = draw
-        return np.asarray(statistic(*full), dtype=float)
-
-    total = sum(sample.size for sample in samples)
-    result = bootstrap(
-        [samples[index] for index in varying],
-        replicate,
-        n_resamples=reps,
-        batch=max(1, _BOOTSTRAP_CHUNK_VALUES // total),
-        vectorized=True,
-        paired=False,
-        axis=-1,
-        confidence_level=confidence,
-        method="percentile",
-        random_state=np.random.default_rng(seed),
-    )
-    return float(result.confidence_interval.low), float(result.confidence_interval.high)
-
-
 # -- stratified bootstrap ----------------------------------------------------------------------
 def stratified_bootstrap_interval(
     scores_by_task: ScoresByTask,
@@ -220,8 +175,9 @@ def stratified_bootstrap_interval(
     tasks = list(_tasks(scores_by_task, "scores_by_task").values())
     reduce = _aggregate_function(aggregate)
     point = float(np.asarray(reduce(np.concatenate(tasks)[None, :])).reshape(-1)[0])
-    low, high = _independent_bootstrap(
-        tasks, lambda *draws: reduce(np.concatenate(draws, axis=1)), reps, confidence, seed
+    low, high = percentile_bootstrap(
+        tasks, lambda *draws: reduce(np.concatenate(draws, axis=1)), reps, confidence, seed,
+        _BOOTSTRAP_CHUNK_VALUES,
     )
     return Estimate(point, low, high)
 
@@ -278,7 +234,8 @@ def probability_of_improvement(
         return per_task / len(names)
 
     samples = [sample for task in names for sample in (xs[task], ys[task])]
-    low, high = _independent_bootstrap(samples, replicate, reps, confidence, seed)
+    low, high = percentile_bootstrap(samples, replicate, reps, confidence, seed,
+                                     _BOOTSTRAP_CHUNK_VALUES)
     return Estimate(point, low, high)
 
 
