@@ -65,7 +65,11 @@ class PickCellEnv(gym.Env):
         ((61,), False)
     """
 
-    metadata = {"render_modes": ["rgb_array"], "render_fps": 5}
+    metadata = {
+        "render_modes": ["rgb_array"],
+        "render_fps": 5,
+        "scripted_policy": "demo_envs.pick_cell.controller:ScriptedPicker",
+    }
 
     def __init__(
         self,

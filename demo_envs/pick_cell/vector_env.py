@@ -42,6 +42,8 @@ class PickCellVectorEnv(VectorEnv):
         "render_modes": ["rgb_array"],
         "render_fps": 5,
         "autoreset_mode": AutoresetMode.NEXT_STEP,
+        # qadapt collect policy=scripted builds this controller ("module:class").
+        "scripted_policy": "demo_envs.pick_cell.controller:ScriptedPicker",
     }
 
     def __init__(

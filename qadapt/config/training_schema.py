@@ -1,9 +1,10 @@
 """Dataclass schemas of the training jobs: network, maximiser, learner, evaluation, pretrain.
 
 Holds:
-    NetworkSettings -- a Q-network's form and widths (-> nets.QNetworkConfig).
-    MaximizerSettings -- the CEM settings used for targets and for acting.
-    LearnerSettings -- every learner.LearnerConfig field, as an editable config node.
+    NetworkSettings -- every nets.QNetworkConfig field, as an editable config node.
+    MaximizerSettings -- every CrossEntropyMaximizer setting but the bounds, likewise.
+    LearnerSettings -- every learner.LearnerConfig field, likewise.
+    build_runtime -- the runtime object from its node: the one place a node becomes it.
     EvalSettings -- in-training evaluation: env, variation, episodes, how often.
     PretrainJob -- ``qadapt pretrain``: train a Q-function from one or more datasets.
     FinetuneJob -- ``qadapt finetune``: adapt a pretrained Q-function on prior + new data
@@ -14,6 +15,7 @@ Holds:
 from __future__ import annotations
 
 import dataclasses
+import inspect
 import typing
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,55 +28,64 @@ from qadapt.errors import BadInput
 from qadapt.learner.config import LearnerConfig
 from qadapt.learner.init.settings import InitSettings
 from qadapt.learner.source_indicator import INDICATOR_KINDS
+from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import QNetworkConfig
 
 
-@dataclass
-class NetworkSettings:
-    form: str = "late_fusion"
-    torso: list[int] = field(default_factory=lambda: [256, 256])
-    head: list[int] = field(default_factory=lambda: [64])
-    output: str = "sigmoid"
-    initial_value: float = 0.1
-    layer_norm: bool = False
-
-    def build(self) -> QNetworkConfig:
-        try:
-            return QNetworkConfig(form=self.form, torso=tuple(self.torso), head=tuple(self.head),
-                                  output=self.output, initial_value=self.initial_value,
-                                  layer_norm=self.layer_norm)
-        except ValueError as err:
-            raise BadInput(f"network.{err}") from err
+def _editable(annotation: Any) -> Any:
+    """The config-node type of a runtime field: tuples become lists (OmegaConf has no tuples)."""
+    return list[typing.get_args(annotation)[0]] if typing.get_origin(annotation) is tuple else (
+        annotation)
 
 
-@dataclass
-class MaximizerSettings:
-    samples: int = 64
-    elites: int = 6
-    iterations: int = 2
-    initial_std: float = 0.5
-    warm_std: float = 0.2
-    min_std: float = 0.02
-
-    def as_kwargs(self) -> dict[str, Any]:
-        return dataclasses.asdict(self)
+def _node_field(default: Any) -> Any:
+    if isinstance(default, tuple | list):
+        return field(default_factory=lambda value=tuple(default): list(value))
+    return field(default=default)
 
 
-def _learner_fields() -> list[tuple[str, Any, Any]]:
-    hints = typing.get_type_hints(LearnerConfig)
-    return [(f.name, hints[f.name], field(default=f.default))
-            for f in dataclasses.fields(LearnerConfig)]
+def _settings_of(name: str, runtime: type, exclude: tuple[str, ...] = ()) -> type:
+    """An editable config-node dataclass with exactly the runtime object's fields, types and
+    defaults: a runtime dataclass's fields, or a class's constructor parameters. The runtime
+    object stays the one schema; the node only lets Hydra merge overrides into it."""
+    if dataclasses.is_dataclass(runtime):
+        hints = typing.get_type_hints(runtime)
+        specs = [(f.name, hints[f.name], f.default) for f in dataclasses.fields(runtime)]
+    else:
+        hints = typing.get_type_hints(runtime.__init__)
+        specs = [(p.name, hints[p.name], p.default)
+                 for p in inspect.signature(runtime).parameters.values()]
+    return dataclasses.make_dataclass(
+        name, [(n, _editable(t), _node_field(d)) for n, t, d in specs if n not in exclude])
 
 
-# Every LearnerConfig field, editable (LearnerConfig itself is frozen); checked by build().
-LearnerSettings = dataclasses.make_dataclass("LearnerSettings", _learner_fields())
+def build_runtime(runtime: type, node: Any, key: str, **extra: Any) -> Any:
+    """``runtime(**node)`` (lists back to tuples where the runtime field is a tuple), with a
+    failed check reported as BadInput under ``key``. The one place a node becomes the object.
+
+    Example:
+        >>> build_runtime(QNetworkConfig, NetworkSettings(head=[32]), "network").head
+        (32,)
+    """
+    hints = typing.get_type_hints(runtime if dataclasses.is_dataclass(runtime)
+                                  else runtime.__init__)
+    values = {k: tuple(v) if typing.get_origin(hints.get(k)) is tuple else v
+              for k, v in dataclasses.asdict(node).items()}
+    try:
+        return runtime(**extra, **values)
+    except ValueError as err:
+        raise BadInput(f"{key}.{err}") from err
+
+
+# Config nodes of runtime objects: each has exactly the fields of the object it builds.
+NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig)
+MaximizerSettings = _settings_of("MaximizerSettings", CrossEntropyMaximizer,
+                                 exclude=("low", "high"))
+LearnerSettings = _settings_of("LearnerSettings", LearnerConfig)
 
 
 def build_learner_config(settings: Any) -> LearnerConfig:
-    try:
-        return LearnerConfig(**dataclasses.asdict(settings))
-    except ValueError as err:
-        raise BadInput(f"learner.{err}") from err
+    return build_runtime(LearnerConfig, settings, "learner")
 
 
 @dataclass

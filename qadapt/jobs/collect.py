@@ -8,9 +8,9 @@ Holds:
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Sequence
 
-from demo_envs.pick_cell import PickCellVectorEnv, ScriptedPicker
 from qadapt.config.hydra_entry import run_job
 from qadapt.config.schema import CollectJob, PolicyConfig
 from qadapt.data import UniformRandomPolicy, collect
@@ -23,9 +23,16 @@ from qadapt.learner.loading import checkpoint_policy
 def build_policy(policy: PolicyConfig, env, seed: int):
     """The policy object for collection (``act`` and ``describe``)."""
     if policy.kind == "scripted":
-        if not isinstance(env.unwrapped, PickCellVectorEnv):
-            raise BadInput("policy=scripted: the scripted picker only drives the pick cell")
-        return ScriptedPicker(noise=policy.noise, random_rate=policy.random_rate, seed=seed)
+        # An env offers a hand-written controller through its metadata ("module:class",
+        # built with noise, random_rate and seed); the demo pick cell offers its picker.
+        entry_point = env.metadata.get("scripted_policy")
+        if not isinstance(entry_point, str) or ":" not in entry_point:
+            raise BadInput("policy=scripted: this env offers no scripted controller (its "
+                           "metadata has no 'scripted_policy'); use policy=random or "
+                           "policy=checkpoint")
+        module, _, name = entry_point.partition(":")
+        controller = getattr(importlib.import_module(module), name)
+        return controller(noise=policy.noise, random_rate=policy.random_rate, seed=seed)
     if policy.kind == "random":
         return UniformRandomPolicy(env.single_action_space, seed=seed)
 

@@ -20,7 +20,6 @@ from qadapt.checkpoint import load_checkpoint
 from qadapt.config.hydra_entry import run_job
 from qadapt.config.training_schema import (
     FinetuneJob,
-    build_learner_config,
     register_training_schemas,
 )
 from qadapt.errors import BadInput
@@ -71,15 +70,12 @@ def run_finetune(cfg: FinetuneJob) -> dict:
 
     settings = {k: run.plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "progress", "prior", "new", "base")}
-    summary = run.run_training(
-        job="finetune", datasets=datasets, shares=shares, network_config=network_config,
-        maximizer_settings=cfg.maximizer, learner_config=build_learner_config(cfg.learner),
-        eval_settings=cfg.eval, eval_dataset=new[0], seed=cfg.seed, out=out,
-        make_critics=make_critics, settings=settings, steps=cfg.steps,
-        checkpoint_every=cfg.checkpoint_every, log_every=cfg.log_every,
-        progress=cfg.progress, memory_limit_mb=cfg.memory_limit_mb,
-        parent={"path": str(base_path), "sha256": base.identity}, indicator=indicator,
-    )
+    summary = run.run_training(run.TrainingRequest(
+        job="finetune", run=cfg, datasets=datasets, shares=shares,
+        network_config=network_config, make_critics=make_critics, out=out, settings=settings,
+        eval_dataset=new[0], parent={"path": str(base_path), "sha256": base.identity},
+        indicator=indicator,
+    ))
     print(f"finetune ({strategy.name}): {summary['steps']} gradient steps; best greedy success "
           f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")

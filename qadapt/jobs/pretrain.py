@@ -19,12 +19,13 @@ import torch
 from qadapt.config.hydra_entry import run_job
 from qadapt.config.training_schema import (
     PretrainJob,
-    build_learner_config,
+    build_runtime,
     register_training_schemas,
 )
 from qadapt.jobs import training_run as run
 from qadapt.jobs.outputs import output_dir
 from qadapt.learner.assembly import new_critics, observation_statistics
+from qadapt.nets import QNetworkConfig
 
 
 def pretrain_job(cfg: PretrainJob) -> int:
@@ -33,7 +34,7 @@ def pretrain_job(cfg: PretrainJob) -> int:
     out = output_dir(cfg.out, "pretrain")
     datasets = run.open_sources(cfg.data)
     act_space = datasets[0].action_space.to_space()
-    network_config = cfg.network.build()
+    network_config = build_runtime(QNetworkConfig, cfg.network, "network")
 
     def make_critics(arrays):
         critics = new_critics(int(datasets[0].obs_dim), act_space.low, act_space.high,
@@ -43,14 +44,11 @@ def pretrain_job(cfg: PretrainJob) -> int:
 
     settings = {k: run.plain(v) for k, v in dataclasses.asdict(cfg).items()
                 if k not in ("out", "progress", "data")}
-    summary = run.run_training(
-        job="pretrain", datasets=datasets, shares=cfg.shares, network_config=network_config,
-        maximizer_settings=cfg.maximizer, learner_config=build_learner_config(cfg.learner),
-        eval_settings=cfg.eval, eval_dataset=datasets[0], seed=cfg.seed, out=out,
-        make_critics=make_critics, settings=settings, steps=cfg.steps,
-        checkpoint_every=cfg.checkpoint_every, log_every=cfg.log_every,
-        progress=cfg.progress, memory_limit_mb=cfg.memory_limit_mb,
-    )
+    summary = run.run_training(run.TrainingRequest(
+        job="pretrain", run=cfg, datasets=datasets, shares=cfg.shares,
+        network_config=network_config, make_critics=make_critics, out=out, settings=settings,
+        eval_dataset=datasets[0],
+    ))
     print(f"pretrain: {summary['steps']} gradient steps; best greedy success "
           f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")

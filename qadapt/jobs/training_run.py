@@ -6,6 +6,8 @@ Holds:
     build_maximizer -- the CEM maximiser for a dataset's action space.
     make_evaluator -- the in-training evaluator (None when evaluation is off).
     write_run_records -- summary.json and lineage.json in the run directory.
+    TrainingRequest -- what a training job hands run_training.
+    run_training -- train, checkpoint, and write the run records.
 """
 
 from __future__ import annotations
@@ -13,15 +15,19 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-import gymnasium as gym
-
 from qadapt import layout
 from qadapt.checkpoint import CheckpointMetadata, DatasetReference
-from qadapt.config.training_schema import EvalSettings, MaximizerSettings
+from qadapt.config.training_schema import (
+    EvalSettings,
+    MaximizerSettings,
+    TrainingRunSettings,
+    build_learner_config,
+)
 from qadapt.data import MixtureSampler, open_dataset
 from qadapt.envs import make_recorded_env, make_vector_env
 from qadapt.errors import BadInput
@@ -30,7 +36,7 @@ from qadapt.learner import FittedQLearner
 from qadapt.learner.assembly import transition_arrays
 from qadapt.learner.source_indicator import TaggedDataset, TaggedSampler
 from qadapt.learner.trainer import GreedyEvaluator, Trainer, TrainingPlan, success_rate
-from qadapt.maximize import CrossEntropyMaximizer
+from qadapt.maximize import build_maximizer as maximizer_for
 from qadapt.spaces import check_spaces
 
 
@@ -50,12 +56,12 @@ def config_digest(settings: dict[str, Any]) -> str:
 
 
 def build_maximizer(settings: MaximizerSettings, action_space):
-    if not isinstance(action_space, gym.spaces.Box):
-        raise BadInput(f"the CEM maximiser needs a Box action space, got {action_space}")
+    """The CEM maximiser for ``action_space`` from the ``maximizer`` node (maximize's factory,
+    the one place a maximiser is built); a bad setting or space is BadInput."""
     try:
-        return CrossEntropyMaximizer(action_space.low, action_space.high, **settings.as_kwargs())
+        return maximizer_for("cem", action_space, **dataclasses.asdict(settings))
     except ValueError as err:
-        raise BadInput(f"maximizer.{err}") from err
+        raise BadInput(f"maximizer: {err}") from err
 
 
 def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=None):
@@ -97,38 +103,42 @@ def _reproducible_time():
     return datetime(1970, 1, 1, tzinfo=UTC)
 
 
-def run_training(
-    *,
-    job: str,
-    datasets: list,
-    shares,
-    network_config,
-    maximizer_settings: MaximizerSettings,
-    learner_config,
-    eval_settings: EvalSettings,
-    eval_dataset,
-    seed: int,
-    out: Path,
-    make_critics,
-    settings: dict[str, Any],
-    steps: int,
-    checkpoint_every: int,
-    log_every: int,
-    progress: bool,
-    memory_limit_mb: int | None,
-    parent: dict[str, Any] | None = None,
-    indicator=None,
-) -> dict[str, Any]:
-    """Train on ``datasets`` and write checkpoints, summary.json and lineage.json in ``out``.
+@dataclasses.dataclass(frozen=True)
+class TrainingRequest:
+    """What a training job hands ``run_training``: one object instead of a keyword list.
 
-    ``make_critics(arrays) -> (critics, anchor)`` builds the starting critics (and the anchor
-    weights for the L2 penalty, or None); it may return a third item, a JSON-able record of
-    how the critics started (the init strategy and its settings), which summary.json,
-    lineage.json and every checkpoint's metadata (``extra["initialisation"]``) then carry.
-    ``indicator`` (a learner.source_indicator.SourceIndicator, or None) appends each
-    source's columns to its observations (batches, cached targets, ``make_critics``'s
-    arrays) and the acting columns in evaluation; checkpoints record it. Returns the summary.
+    ``run`` is the job's typed config (its steps, seed, checkpoint and log intervals, memory
+    limit, maximiser, learner and evaluation nodes). ``make_critics(arrays) -> (critics,
+    anchor)`` builds the starting critics (and the anchor weights for the L2 penalty, or
+    None); it may return a third item, a JSON-able record of how the critics started (the init
+    strategy and its settings), which summary.json, lineage.json and every checkpoint's
+    metadata (``extra["initialisation"]``) then carry. ``settings`` are what the config digest
+    covers. ``indicator`` (a learner.source_indicator.SourceIndicator, or None) appends each
+    source's columns to its observations (batches, cached targets, ``make_critics``'s arrays)
+    and the acting columns in evaluation; checkpoints record it.
     """
+
+    job: str
+    run: TrainingRunSettings
+    datasets: list
+    shares: list[float] | None
+    network_config: Any
+    make_critics: Callable
+    out: Path
+    settings: dict[str, Any]
+    eval_dataset: Any
+    parent: dict[str, Any] | None = None
+    indicator: Any = None
+
+
+def run_training(request: TrainingRequest) -> dict[str, Any]:
+    """Train as ``request`` says; write checkpoints, summary.json and lineage.json in its
+    ``out``. Returns the summary."""
+    cfg = request.run
+    datasets, indicator, parent = request.datasets, request.indicator, request.parent
+    network_config, seed = request.network_config, cfg.seed
+    maximizer_settings, eval_settings = cfg.maximizer, cfg.eval
+    learner_config = build_learner_config(cfg.learner)
     first = datasets[0]
     obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()
     maximizer = build_maximizer(maximizer_settings, act_space)
@@ -137,26 +147,26 @@ def run_training(
                   for i, d in enumerate(datasets)]
     else:
         arrays = [transition_arrays(d) for d in datasets]
-    critics, anchor, *record = make_critics(arrays)
+    critics, anchor, *record = request.make_critics(arrays)
     initialisation = record[0] if record else None
     learner = FittedQLearner(critics, maximizer, learner_config, arrays, seed=seed,
                              anchor=anchor)
-    memory = None if memory_limit_mb is None else memory_limit_mb * 2**20
-    shares = [float(x) for x in (shares or [1.0 / len(datasets)] * len(datasets))]
+    memory = None if cfg.memory_limit_mb is None else cfg.memory_limit_mb * 2**20
+    shares = [float(x) for x in (request.shares or [1.0 / len(datasets)] * len(datasets))]
     sampler = MixtureSampler(datasets, shares=shares, batch_size=learner_config.batch_size,
                              seed=seed, memory_limit_bytes=memory)
     if indicator is not None:
         sampler = TaggedSampler(sampler, indicator)
-    evaluator = make_evaluator(eval_settings, maximizer, eval_dataset,
+    evaluator = make_evaluator(eval_settings, maximizer, request.eval_dataset,
                                acting_columns=None if indicator is None else indicator.acting)
-    settings = {**settings, "datasets": [d.fingerprint for d in datasets],
+    settings = {**request.settings, "datasets": [d.fingerprint for d in datasets],
                 "parent": None if parent is None else parent["sha256"]}
     digest = config_digest(settings)
-    environment = eval_dataset.manifest.environment
+    environment = request.eval_dataset.manifest.environment
     metadata = CheckpointMetadata(
         observation_space=obs_space, action_space=act_space,
         network={"q_network": network_config.to_dict(),
-                 "maximizer": maximizer_settings.as_kwargs(),
+                 "maximizer": dataclasses.asdict(maximizer_settings),
                  "source_indicator": None if indicator is None else indicator.to_json()},
         env_id=environment.id, env_kwargs=dict(environment.kwargs),
         gradient_step=0, config_digest=digest,
@@ -166,13 +176,13 @@ def run_training(
         created_at=_reproducible_time(),
         extra={} if initialisation is None else {"initialisation": initialisation},
     )
-    plan = TrainingPlan(steps=steps, eval_every=eval_settings.every if evaluator else 0,
-                        checkpoint_every=checkpoint_every, log_every=log_every,
-                        progress_bar=progress)
-    outcome = Trainer(learner, sampler, plan, out, metadata, evaluator).run()
+    plan = TrainingPlan(steps=cfg.steps, eval_every=eval_settings.every if evaluator else 0,
+                        checkpoint_every=cfg.checkpoint_every, log_every=cfg.log_every,
+                        progress_bar=cfg.progress)
+    outcome = Trainer(learner, sampler, plan, request.out, metadata, evaluator).run()
     result = outcome.best_path or outcome.last_path
     summary = {
-        "job": job,
+        "job": request.job,
         "steps": outcome.steps,
         "resumed_from_step": outcome.resumed_from,
         "seconds": round(outcome.seconds, 2),
@@ -191,5 +201,5 @@ def run_training(
                             for d, share in zip(datasets, shares, strict=True)]}
     if initialisation is not None:
         summary["initialisation"] = lineage["initialisation"] = initialisation
-    write_run_records(Path(out), summary, lineage)
+    write_run_records(Path(request.out), summary, lineage)
     return summary

@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import gymnasium as gym
 import torch
 
 from qadapt.checkpoint import load_checkpoint
@@ -17,10 +16,8 @@ from qadapt.errors import BadInput
 from qadapt.layout import resolve_checkpoint
 from qadapt.learner.policy import QPolicy
 from qadapt.learner.source_indicator import ActingTag, SourceIndicator
-from qadapt.maximize import CrossEntropyMaximizer
+from qadapt.maximize import build_maximizer
 from qadapt.nets import QNetworkConfig, build_q_network
-
-DEFAULT_POLICY_MAXIMIZER = {"samples": 64, "elites": 6, "iterations": 2}
 
 
 def load_q_network(path: str | Path, observation_space=None, action_space=None,
@@ -59,10 +56,9 @@ def checkpoint_policy(path, env, seed: int, gaussian_std: float = 0.0, epsilon: 
     path = resolve_checkpoint(path, key="policy.checkpoint")
     network, loaded = load_q_network(path, env.single_observation_space,
                                      env.single_action_space)
-    space = env.single_action_space
-    if not isinstance(space, gym.spaces.Box):
-        raise BadInput(f"{path}: acting with CEM needs a Box action space, the env has {space}")
-    settings = {**DEFAULT_POLICY_MAXIMIZER, **(maximizer_settings or {})}
-    maximizer = CrossEntropyMaximizer(space.low, space.high, **settings)
+    try:  # the CEM's own defaults unless settings are given (maximize's factory)
+        maximizer = build_maximizer("cem", env.single_action_space, **(maximizer_settings or {}))
+    except ValueError as err:
+        raise BadInput(f"{path}: {err}") from err
     return QPolicy(network, maximizer, seed=seed, gaussian_std=gaussian_std, epsilon=epsilon,
                    provenance={"checkpoint": str(path), "checkpoint_sha256": loaded.identity})

@@ -18,11 +18,11 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-import demo_envs
 from qadapt.checkpoint import load_checkpoint
 from qadapt.config.compose import variation_by_name
 from qadapt.config.schema import EnvConfig
-from qadapt.envs import make_vector_env
+from qadapt.envs import env_creator, env_kwargs, make_vector_env
+from qadapt.errors import BadInput
 from qadapt.layout import resolve_checkpoint
 from qadapt.learner.loading import checkpoint_policy
 
@@ -30,13 +30,12 @@ FRAME_STEP = 2
 FILMSTRIP_SEED = 4242
 
 
-def _frames(checkpoint: str, variation, episodes: int) -> list[tuple[list[np.ndarray], bool]]:
-    probe = make_vector_env(EnvConfig(), variation, 1)
+def _frames(env_id: str, checkpoint: str, variation,
+            episodes: int) -> list[tuple[list[np.ndarray], bool]]:
+    config = EnvConfig(id=env_id)
+    probe = make_vector_env(config, variation, 1)
     policy = checkpoint_policy(checkpoint, probe, seed=FILMSTRIP_SEED)
-    kwargs = {"perturbations": dict(variation.perturbations)} if variation.perturbations else {}
-    if variation.reveal:
-        kwargs["reveal"] = True
-    env = gym.make(demo_envs.PICK_CELL_ID, render_mode="rgb_array", **kwargs)
+    env = gym.make(env_id, render_mode="rgb_array", **env_kwargs(config, variation))
     strips = []
     for episode in range(episodes):
         obs, _ = env.reset(seed=FILMSTRIP_SEED + episode)
@@ -51,6 +50,15 @@ def _frames(checkpoint: str, variation, episodes: int) -> list[tuple[list[np.nda
         strips.append((frames, success))
     env.close()
     return strips
+
+
+def _render_modes(env_id: str) -> list[str]:
+    """The render modes the env's class declares (none for an id that is not registered)."""
+    try:
+        creator = env_creator(env_id)
+    except BadInput:
+        return []
+    return list(getattr(creator, "metadata", {}).get("render_modes") or [])
 
 
 def _draw(strips, title: str, path: Path) -> None:
@@ -74,7 +82,8 @@ def write_filmstrips(study_dir: Path, plan, rows: list[dict[str, Any]], episodes
     if episodes < 1 or not rows:
         return
 
-    if load_checkpoint(resolve_checkpoint(plan.base)).metadata.env_id != demo_envs.PICK_CELL_ID:
+    env_id = load_checkpoint(resolve_checkpoint(plan.base)).metadata.env_id
+    if "rgb_array" not in _render_modes(env_id):
         return
     variation_name = plan.settings["variations"][0]
     first_seed = plan.settings["seeds"][0]
@@ -91,5 +100,5 @@ def write_filmstrips(study_dir: Path, plan, rows: list[dict[str, Any]], episodes
         path = out / f"{strategy}.png"
         if path.exists():
             continue
-        _draw(_frames(checkpoint, variation, episodes),
+        _draw(_frames(env_id, checkpoint, variation, episodes),
               f"{strategy} on {variation_name}, seed {first_seed}", path)
