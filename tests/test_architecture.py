@@ -115,9 +115,9 @@ def test_imports_go_down_the_layers():
 
 def test_the_layer_check_reports_an_upward_and_a_sideways_import():
     fake = {"qadapt.learner.fqi": [("qadapt.jobs.chain", 1, True), ("qadapt.nets", 2, True)],
-            "qadapt.data.dataset": [("qadapt.checkpoint.store", 3, True)]}
+            "qadapt.data.format.dataset": [("qadapt.checkpoint.store", 3, True)]}
     assert _upward(fake) == ["fqi.py:1 qadapt.learner.fqi -> qadapt.jobs.chain",
-                             "dataset.py:3 qadapt.data.dataset -> qadapt.checkpoint.store"]
+                             "dataset.py:3 qadapt.data.format.dataset -> qadapt.checkpoint.store"]
 
 
 def test_no_import_cycles():

@@ -12,7 +12,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from qadapt.data.dataset import open_dataset
+from qadapt.data.format.dataset import open_dataset
 from qadapt.data.statistics import dataset_statistics
 from qadapt.errors import BadInput
 
@@ -26,7 +26,7 @@ def inspect_dataset(path: str | Path) -> dict[str, Any]:
 
     Example:
         >>> import tempfile
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
         >>> p = write_synthetic_dataset(Path(tempfile.mkdtemp()) / "s", transitions=400)
         >>> r = inspect_dataset(p)
         >>> r["transitions"], r["episodes"], r["success_rate"], r["checksums_ok"]

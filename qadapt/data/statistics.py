@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from qadapt.data.episodes import finished_episodes
+from qadapt.data.format.episodes import finished_episodes
 
 _ACTION_BLOCK_ROWS = 1 << 18
 
@@ -54,8 +54,8 @@ def dataset_statistics(dataset) -> DatasetStatistics:
     Example:
         >>> import tempfile
         >>> from pathlib import Path
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
-        >>> from qadapt.data.dataset import open_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.format.dataset import open_dataset
         >>> ds = open_dataset(write_synthetic_dataset(Path(tempfile.mkdtemp()) / "s",
         ...                                           transitions=400, episode_length=100))
         >>> s = dataset_statistics(ds)

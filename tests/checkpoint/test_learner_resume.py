@@ -8,7 +8,7 @@ import pytest
 import torch
 
 from qadapt.checkpoint import load_checkpoint, save_checkpoint
-from qadapt.data.batch import ReplayBatch
+from qadapt.data.sampling.batch import ReplayBatch
 from qadapt.learner import FittedQLearner, LearnerConfig, TransitionArrays
 from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import CriticPair, QNetworkConfig, build_q_network

@@ -7,9 +7,9 @@ from __future__ import annotations
 import torch
 
 from qadapt.checkpoint import load_checkpoint, save_checkpoint
-from qadapt.data.dataset import open_dataset
-from qadapt.data.mixture import MixtureSampler
-from qadapt.data.synthetic import write_synthetic_dataset
+from qadapt.data.format.dataset import open_dataset
+from qadapt.data.sampling.mixture import MixtureSampler
+from qadapt.data.writing.synthetic import write_synthetic_dataset
 
 from .conftest import make_metadata, make_weights
 

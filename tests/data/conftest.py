@@ -9,7 +9,7 @@ import gymnasium
 import numpy as np
 import pytest
 
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.writing.writer import DatasetWriter
 
 ENV_RECORD = {"id": "Pendulum-v1", "kwargs": {"g": 9.81}, "wrappers": []}
 

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from qadapt.data import import_arrays, open_dataset
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.writing.writer import DatasetWriter
 from qadapt.errors import BadInput
 from qadapt.spaces import check_spaces
 

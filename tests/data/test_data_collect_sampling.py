@@ -13,7 +13,7 @@ from gymnasium.vector import SyncVectorEnv
 import demo_envs
 from demo_envs.pick_cell import ScriptedPicker
 from qadapt.data import UniformRandomPolicy, collect, open_dataset
-from qadapt.data.collection import _chunk_seeds, episode_quotas
+from qadapt.data.writing.collection import _chunk_seeds, episode_quotas
 from qadapt.errors import BadInput
 from qadapt.rollout import run_episodes
 

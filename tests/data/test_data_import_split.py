@@ -127,7 +127,7 @@ def test_a_trailing_unfinished_episode_is_kept(tmp_path, their_arrays):
 
 
 def test_import_a_large_source_in_several_chunks(tmp_path, monkeypatch, their_arrays):
-    import qadapt.data.importing as importing
+    import qadapt.data.writing.importing as importing
 
     monkeypatch.setattr(importing, "_CHUNK_EPISODES_ROWS", 7)
     arrays = their_arrays(lengths=(4, 6, 5, 3, 8, 2))

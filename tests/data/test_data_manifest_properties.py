@@ -11,7 +11,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from qadapt.data.manifest import decode_manifest_text, example_manifest_json, parse_manifest
+from qadapt.data.format.manifest import decode_manifest_text, example_manifest_json, parse_manifest
 from qadapt.errors import BadInput
 
 JSON_LEAVES = st.one_of(

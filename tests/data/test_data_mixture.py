@@ -10,8 +10,8 @@ import torch
 from scipy.stats import binomtest
 
 from qadapt.data import LinearShareSchedule, MixtureSampler, check_shares, open_dataset
-from qadapt.data.gather import SAMPLED_FIELDS, MappedRows, WindowedRows
-from qadapt.data.synthetic import write_synthetic_dataset
+from qadapt.data.sampling.gather import SAMPLED_FIELDS, MappedRows, WindowedRows
+from qadapt.data.writing.synthetic import write_synthetic_dataset
 from qadapt.errors import BadInput
 
 BATCH_FIELDS = (

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from qadapt.data import UniformRandomPolicy, collect, open_dataset
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.writing.writer import DatasetWriter
 from qadapt.errors import BadInput
 
 SCRIPT = textwrap.dedent(

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 
 from qadapt.data import open_dataset
-from qadapt.data.manifest import FORMAT_NAME
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.format.manifest import FORMAT_NAME
+from qadapt.data.writing.writer import DatasetWriter
 from qadapt.errors import BadInput
 
 

@@ -21,8 +21,8 @@ from qadapt.data import (
     split_dataset,
     write_synthetic_dataset,
 )
-from qadapt.data.manifest import parse_manifest
-from qadapt.data.schema import FIELDS, expected_fields, expected_shape
+from qadapt.data.format.manifest import parse_manifest
+from qadapt.data.format.schema import FIELDS, expected_fields, expected_shape
 from qadapt.spaces import check_spaces
 
 ENV = {"id": "Pendulum-v1", "kwargs": {}, "wrappers": []}

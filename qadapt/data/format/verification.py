@@ -14,15 +14,15 @@ from pathlib import Path
 
 import numpy as np
 
-from qadapt.data.episodes import (
+from qadapt.data.format.episodes import (
     check_done_flags,
     episode_lengths_from_index,
     episode_returns,
     episode_success,
 )
-from qadapt.data.manifest import Manifest
-from qadapt.data.npy_files import NpyHeader, scan_blocks
-from qadapt.data.validation import action_bound_problem, non_finite_problem
+from qadapt.data.format.manifest import Manifest
+from qadapt.data.format.npy_files import NpyHeader, scan_blocks
+from qadapt.data.format.validation import action_bound_problem, non_finite_problem
 from qadapt.errors import BadInput
 
 # Fields kept whole in memory during the pass for the cross-field checks (all 1-D and small:

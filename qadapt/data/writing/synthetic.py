@@ -12,7 +12,7 @@ from pathlib import Path
 import gymnasium
 import numpy as np
 
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.writing.writer import DatasetWriter
 
 
 def write_synthetic_dataset(
@@ -36,7 +36,7 @@ def write_synthetic_dataset(
         >>> import tempfile
         >>> path = write_synthetic_dataset(Path(tempfile.mkdtemp()) / "s", transitions=250,
         ...                                episode_length=100)
-        >>> from qadapt.data.dataset import open_dataset
+        >>> from qadapt.data.format.dataset import open_dataset
         >>> open_dataset(path).episode_count
         3
     """

@@ -17,10 +17,10 @@ from typing import Any
 import gymnasium
 import numpy as np
 
-from qadapt.data.episodes import check_done_flags, episode_lengths_from_index
-from qadapt.data.npy_files import read_npy_header
-from qadapt.data.schema import FIELDS
-from qadapt.data.validation import (
+from qadapt.data.format.episodes import check_done_flags, episode_lengths_from_index
+from qadapt.data.format.npy_files import read_npy_header
+from qadapt.data.format.schema import FIELDS
+from qadapt.data.format.validation import (
     as_bool,
     as_float32,
     as_int64,
@@ -28,7 +28,7 @@ from qadapt.data.validation import (
     check_finite,
     check_row_counts,
 )
-from qadapt.data.writer import DatasetWriter, check_collector_record
+from qadapt.data.writing.writer import DatasetWriter, check_collector_record
 from qadapt.errors import BadInput
 from qadapt.files import sha256_of_file
 from qadapt.spaces import describe_space

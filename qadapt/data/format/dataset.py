@@ -15,9 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
-from qadapt.data.manifest import Manifest, read_manifest
-from qadapt.data.npy_files import NpyHeader, RowReader, read_npy_header, read_rows
-from qadapt.data.verification import verify_files
+from qadapt.data.format.manifest import Manifest, read_manifest
+from qadapt.data.format.npy_files import NpyHeader, RowReader, read_npy_header, read_rows
+from qadapt.data.format.verification import verify_files
 from qadapt.errors import BadInput
 from qadapt.files import resolve_member
 
@@ -46,7 +46,7 @@ class ReplayDataset:
     :meth:`rows`), so unverified data can never reach a learner.
 
     Example:
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
         >>> import tempfile
         >>> path = write_synthetic_dataset(Path(tempfile.mkdtemp()) / "s", transitions=50)
         >>> dataset = open_dataset(path, verify=False)

@@ -19,13 +19,13 @@ from typing import Any
 import gymnasium
 import numpy as np
 
-from qadapt.data.episodes import (
+from qadapt.data.format.episodes import (
     check_done_flags,
     episode_index_from_lengths,
     episode_returns,
     episode_success,
 )
-from qadapt.data.manifest import (
+from qadapt.data.format.manifest import (
     EnvironmentRecord,
     FieldEntry,
     Manifest,
@@ -33,16 +33,15 @@ from qadapt.data.manifest import (
     check_json_value,
     manifest_text,
 )
-from qadapt.data.npy_files import NpyStreamWriter
-from qadapt.data.schema import (
+from qadapt.data.format.npy_files import NpyStreamWriter
+from qadapt.data.format.schema import (
     FIELDS,
     FORMAT_VERSION,
     MANIFEST_NAME,
     expected_fields,
     expected_shape,
 )
-from qadapt.data.staging import StagingArea, check_output_path
-from qadapt.data.validation import (
+from qadapt.data.format.validation import (
     as_bool,
     as_float32,
     as_int64,
@@ -50,6 +49,7 @@ from qadapt.data.validation import (
     check_finite,
     check_row_counts,
 )
+from qadapt.data.writing.staging import StagingArea, check_output_path
 from qadapt.errors import BadInput
 from qadapt.files import write_text_durably
 from qadapt.spaces import SpaceDescription, describe_space

@@ -64,8 +64,8 @@ class MappedRows:
 
     Example:
         >>> import tempfile; from pathlib import Path
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
-        >>> from qadapt.data.dataset import open_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.format.dataset import open_dataset
         >>> ds = open_dataset(write_synthetic_dataset(Path(tempfile.mkdtemp()) / "s",
         ...                                           transitions=10, obs_dim=3, act_dim=2))
         >>> source = MappedRows(ds)

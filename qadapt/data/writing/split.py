@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from qadapt.data.dataset import open_dataset
-from qadapt.data.manifest import SplitRecord
-from qadapt.data.writer import DatasetWriter
+from qadapt.data.format.dataset import open_dataset
+from qadapt.data.format.manifest import SplitRecord
+from qadapt.data.writing.writer import DatasetWriter
 from qadapt.errors import BadInput
 
 _BLOCK_ROWS = 1 << 17
@@ -48,7 +48,7 @@ def split_dataset(
 
     Example:
         >>> import tempfile
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
         >>> root = Path(tempfile.mkdtemp())
         >>> whole = write_synthetic_dataset(root / "all", transitions=1000, episode_length=100)
         >>> train, held = split_dataset(whole, 0.2, 0, root / "train", root / "held")

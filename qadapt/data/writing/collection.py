@@ -23,14 +23,14 @@ from gymnasium.vector import AutoresetMode
 from tqdm import tqdm
 
 from qadapt.checks import positive_int
-from qadapt.data.dataset import open_dataset
-from qadapt.data.manifest import EnvironmentRecord
-from qadapt.data.policy import Policy
-from qadapt.data.schema import FORMAT_VERSION
+from qadapt.data.format.dataset import open_dataset
+from qadapt.data.format.manifest import EnvironmentRecord
+from qadapt.data.format.schema import FORMAT_VERSION
+from qadapt.data.format.validation import check_actions
 from qadapt.data.statistics import dataset_statistics
-from qadapt.data.step_log import StepLog
-from qadapt.data.validation import check_actions
-from qadapt.data.writer import DatasetWriter, check_collector_record
+from qadapt.data.writing.policy import Policy
+from qadapt.data.writing.step_log import StepLog
+from qadapt.data.writing.writer import DatasetWriter, check_collector_record
 from qadapt.errors import BadInput
 from qadapt.spaces import DiscreteDescription, describe_space
 
@@ -190,7 +190,7 @@ def collect(
 
     Example:
         >>> import tempfile
-        >>> from qadapt.data.policy import UniformRandomPolicy
+        >>> from qadapt.data.writing.policy import UniformRandomPolicy
         >>> envs = gymnasium.make_vec("CartPole-v1", 2, vectorization_mode="sync")
         >>> summary = collect(envs, UniformRandomPolicy(envs.single_action_space, seed=1),
         ...     episodes=5, out=Path(tempfile.mkdtemp()) / "cartpole", seed=0,

@@ -15,10 +15,10 @@ import numpy as np
 import torch
 
 from qadapt.checks import positive_int
-from qadapt.data.batch import ReplayBatch
-from qadapt.data.block_pool import BlockPool
-from qadapt.data.gather import SAMPLED_FIELDS, InMemoryRows, MappedRows, WindowedRows
-from qadapt.data.shares import LinearShareSchedule, check_shares
+from qadapt.data.sampling.batch import ReplayBatch
+from qadapt.data.sampling.block_pool import BlockPool
+from qadapt.data.sampling.gather import SAMPLED_FIELDS, InMemoryRows, MappedRows, WindowedRows
+from qadapt.data.sampling.shares import LinearShareSchedule, check_shares
 from qadapt.errors import BadInput
 
 _STATE_VERSION = 1
@@ -59,8 +59,8 @@ class MixtureSampler:
 
     Example:
         >>> import tempfile; from pathlib import Path
-        >>> from qadapt.data.synthetic import write_synthetic_dataset
-        >>> from qadapt.data.dataset import open_dataset
+        >>> from qadapt.data.writing.synthetic import write_synthetic_dataset
+        >>> from qadapt.data.format.dataset import open_dataset
         >>> root = Path(tempfile.mkdtemp())
         >>> prior = open_dataset(write_synthetic_dataset(root / "prior", transitions=500))
         >>> fresh = open_dataset(write_synthetic_dataset(root / "fresh", transitions=80))

@@ -22,7 +22,7 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any
 
-from qadapt.data.schema import (
+from qadapt.data.format.schema import (
     FIELDS,
     FORMAT_VERSION,
     MANIFEST_NAME,

@@ -20,8 +20,8 @@ from typing import Any
 
 import numpy as np
 
-from qadapt.data.npy_files import NpyStreamWriter
-from qadapt.data.schema import MANIFEST_NAME
+from qadapt.data.format.npy_files import NpyStreamWriter
+from qadapt.data.format.schema import MANIFEST_NAME
 from qadapt.errors import BadInput
 from qadapt.files import (
     fsync_directory,
