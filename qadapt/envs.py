@@ -20,6 +20,7 @@ Box-space env.
 
 from __future__ import annotations
 
+import difflib
 import importlib
 import inspect
 from typing import Any
@@ -45,6 +46,11 @@ def registered_spec(env_id: str):
         'CartPole-v1'
         >>> registered_spec("demo_envs/PickCell-v0").vector_entry_point is not None
         True
+        >>> try:
+        ...     registered_spec("CartPol-v1")
+        ... except BadInput as err:
+        ...     print(str(err).split("; ")[1].split(",")[0])
+        close matches: CartPole-v1
     """
     name = env_id.split(":", 1)[1] if ":" in env_id else env_id
     namespace = name.split("/", 1)[0] if "/" in name else None
@@ -55,8 +61,8 @@ def registered_spec(env_id: str):
     try:
         return gym.spec(name)
     except gym.error.Error as err:
-        close = [known for known in gym.registry if name.lower().split("-v")[0] in known.lower()]
-        hint = f"; close matches: {', '.join(sorted(close)[:5])}" if close else ""
+        close = difflib.get_close_matches(name, list(gym.registry), n=5, cutoff=0.6)
+        hint = f"; close matches: {', '.join(close)}" if close else ""
         raise BadInput(f"env.id: {env_id!r} is not a registered gymnasium environment"
                        f"{hint}") from err
 

@@ -912,6 +912,22 @@ def _evaluate_output_parent_is_file(ws, scratch):
             [str(blocker)])
 
 
+# Environments --------------------------------------------------------------------------------
+@case("config", "collect")
+def _collect_misspelt_env(ws, scratch):
+    """collect: an env id that is not registered (close matches named)"""
+    return (["collect", "env=gym", "env.id=Pendulm-v1", "policy=random", "episodes=2",
+             f"out={scratch / 'out'}", "progress=false"], ["Pendulm-v1", "Pendulum-v1"])
+
+
+@case("config", "collect")
+def _collect_perturbation_on_other_env(ws, scratch):
+    """collect: a pick-cell variation on an env whose constructor takes no perturbations"""
+    return (["collect", "env=gym", "env.id=Pendulum-v1", "variation=finger_offset",
+             "policy=random", "episodes=2", f"out={scratch / 'out'}", "progress=false"],
+            ["Pendulum-v1", "perturbations", "variation.wrappers"])
+
+
 # Chain ---------------------------------------------------------------------------------------
 def _chain(ws: Workspace, scratch: Path, *extra: str) -> list[str]:
     return ["chain", f"base={ws.best}", f"prior={ws.dataset}", "variations=[finger_offset]",
