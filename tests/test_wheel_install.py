@@ -134,5 +134,5 @@ def test_the_installed_wheel_runs_jobs_outside_the_repo(venv, tmp_path):
     for name in ("summary.json", "lineage.json", "checkpoints/last/weights.safetensors",
                  "checkpoints/last/checkpoint.json"):
         assert (run / name).is_file(), name
-    # Hydra's run folders went to the working folder, not the repo or site-packages.
-    assert (work / "outputs").is_dir()
+    # The jobs wrote only under out=: nothing else in the working folder (no Hydra run folders).
+    assert sorted(p.name for p in work.iterdir()) == ["data", "run"]

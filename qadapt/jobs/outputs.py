@@ -14,8 +14,9 @@ from qadapt.errors import BadInput
 
 
 def output_dir(out: str | None, default_name: str) -> Path:
-    """``out`` if given, else ``default_name`` inside the Hydra run directory; the parent
-    folder is created."""
+    """``out`` if given, else ``default_name`` inside the Hydra run directory (the working
+    directory for the jobs whose configs set ``hydra.run.dir: .``); the parent folder is
+    created."""
     if out:
         path = Path(out)
     else:

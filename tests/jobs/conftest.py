@@ -1,7 +1,7 @@
 """Shared helpers for the job tests: run the console script, fingerprint a folder, export arrays.
 
 Every job runs as its own process (``python -m qadapt.cli ...``) with the working directory
-set to a temporary folder, so Hydra's ``outputs/`` run folders land there, not in the repo.
+set to a temporary folder, so a job run without out= writes there, not in the repo.
 """
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ import json
 
 import numpy as np
 
-from tests.jobs.conftest import dataset_arrays, inspect_json, run_ok
+from tests.jobs.conftest import dataset_arrays, inspect_json, run_ok, run_qadapt
 
 
 def test_collect_writes_a_verified_dataset_with_its_variation(pick_cell_dataset, tmp_path):
@@ -88,3 +88,15 @@ def test_any_gymnasium_env_and_its_kwargs_reach_the_env(tmp_path):
     assert use.sum() > 100
     g = (2.0 / 3.0) * ((thdot_next - thdot)[use] / 0.05 - 3.0 * u[use]) / sin_th[use]
     assert abs(float(np.median(g)) - 12.0) < 0.05  # the default would give 10
+
+
+def test_a_job_writes_nothing_in_the_working_directory(tmp_path):
+    # Hydra's own outputs (dated run folders, .hydra/, log files) are switched off in the job
+    # configs: only out= is written (common practice for tools run from a read-only folder).
+    work = tmp_path / "work"
+    work.mkdir()
+    result = run_qadapt("collect", "policy=random", "episodes=2", "num_envs=2",
+                        f"out={tmp_path / 'data'}", "progress=false", cwd=work)
+    assert result.returncode == 0, result.stderr
+    assert list(work.iterdir()) == []
+    assert (tmp_path / "data" / "manifest.json").is_file()
