@@ -14,14 +14,13 @@ from collections.abc import Sequence
 import numpy as np
 import torch
 
+from qadapt.checks import positive_float, positive_int
 from qadapt.maximize.base import ActionMaximizer, MaximizerResult, ScoreFn
 from qadapt.maximize.checks import (
     check_batch_size,
     check_initial,
     check_scores,
     check_state_keys,
-    positive_float,
-    positive_int,
 )
 
 BoundsLike = Sequence[float] | np.ndarray | torch.Tensor

@@ -1,7 +1,6 @@
 """Argument checks the maximisers share; each raises ValueError naming the parameter.
 
 Holds:
-    positive_int, positive_float -- from qadapt.checks (re-exported for the maximisers).
     check_batch_size -- the ``batch_size`` argument of ``maximize``.
     check_initial -- a warm-start tensor of shape [B, A] with finite entries, as float32.
     check_scores -- the output of a score function: shape [B, K], floating, no NaN.
@@ -14,7 +13,7 @@ from collections.abc import Iterable
 
 import torch
 
-from qadapt.checks import positive_float, positive_int  # noqa: F401 (re-exported)
+from qadapt.checks import positive_int
 
 
 def check_batch_size(batch_size: object) -> int:

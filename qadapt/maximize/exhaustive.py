@@ -10,13 +10,13 @@ from __future__ import annotations
 import numpy as np
 import torch
 
+from qadapt.checks import positive_int
 from qadapt.maximize.base import ActionMaximizer, MaximizerResult, ScoreFn
 from qadapt.maximize.checks import (
     check_batch_size,
     check_initial,
     check_scores,
     check_state_keys,
-    positive_int,
 )
 
 # 4 Mi floats (16 MiB) of candidates per score call: large enough that the per-call overhead

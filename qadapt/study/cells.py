@@ -35,9 +35,6 @@ from qadapt.study.plan import Cell, StudyPlan
 from qadapt.study.results import ResultRow
 from qadapt.study.schema import CellJob, register_study_schemas
 
-ROWS_NAME = layout.CELL_ROWS
-FAILED_NAME = layout.CELL_FAILURE
-
 
 def cell_dir(study_dir: Path, cell_id: str) -> Path:
     return Path(study_dir) / "cells" / cell_id
@@ -179,12 +176,12 @@ def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
     plan = StudyPlan.read(study_dir)
     cell = plan.cell(cell_id)
     where = cell_dir(study_dir, cell.id)
-    rows_path = where / ROWS_NAME
+    rows_path = where / layout.CELL_ROWS
     if rows_path.exists():
         print(f"cell {cell.id}: finished earlier, skipped")
         return json.loads(rows_path.read_text())
     where.mkdir(parents=True, exist_ok=True)
-    (where / FAILED_NAME).unlink(missing_ok=True)  # a retry
+    (where / layout.CELL_FAILURE).unlink(missing_ok=True)  # a retry
     if cell.kind == "base":
         rows = _base_rows(plan, cell)
     elif cell.kind == "finetune":
@@ -206,7 +203,7 @@ def cell_job(cfg: CellJob) -> int:
         where = cell_dir(Path(cfg.study), cfg.cell)
         where.mkdir(parents=True, exist_ok=True)
         message = str(err).splitlines()[0] if str(err) else type(err).__name__
-        write_text_durably(where / FAILED_NAME, json.dumps({"cell": cfg.cell,
+        write_text_durably(where / layout.CELL_FAILURE, json.dumps({"cell": cfg.cell,
                                                             "error": message}))
         print(f"cell {cfg.cell}: failed: {message}")
     return 0

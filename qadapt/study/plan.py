@@ -24,8 +24,6 @@ from qadapt.files import write_text_durably
 from qadapt.jobs.training_run import plain
 from qadapt.study.arms import study_arm
 
-PLAN_NAME = layout.PLAN
-
 
 def _derived_seed(*parts: Any) -> int:
     """A fixed seed for a named thing, so adding cells never changes another cell's data."""
@@ -100,7 +98,7 @@ class StudyPlan:
 
     @classmethod
     def read(cls, study_dir: Path) -> StudyPlan:
-        path = Path(study_dir) / PLAN_NAME
+        path = Path(study_dir) / layout.PLAN
         try:
             return cls.from_json(json.loads(path.read_text()))
         except (OSError, ValueError, KeyError, TypeError) as err:
@@ -108,7 +106,7 @@ class StudyPlan:
 
     def write(self, study_dir: Path) -> None:
         """Write ``cells.json``; refuse a directory that holds a different study's plan."""
-        path = Path(study_dir) / PLAN_NAME
+        path = Path(study_dir) / layout.PLAN
         if path.exists():
             stored = StudyPlan.read(study_dir)
             if stored.digest != self.digest:

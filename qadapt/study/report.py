@@ -1,7 +1,6 @@
 """``qadapt report``: a study directory's results.jsonl -> report.html and summary.md.
 
 Holds:
-    RESULTS_NAME -- the results file a study directory holds ("results.jsonl").
     build_report -- compute every section and write both files; returns their paths.
     report_main -- the command-line entry point; exit 0, or 2 with one line on bad input.
 
@@ -38,7 +37,6 @@ from qadapt.study.training_sections import (
 )
 from qadapt.study.view import StudyView
 
-RESULTS_NAME = layout.RESULTS
 _SECTIONS = (overview_section, success_section, improvement_section, budget_section,
              share_section, forgetting_section, rounds_section, curve_section,
              training_log_section, filmstrip_section)
@@ -63,13 +61,13 @@ def build_report(
     study_dir = Path(study_dir)
     if not study_dir.is_dir():
         raise BadInput(f"study directory: {study_dir} is not a directory, expected one holding "
-                       f"{RESULTS_NAME}")
+                       f"{layout.RESULTS}")
     if isinstance(level, bool) or not isinstance(level, float | int) or not 0.0 <= level < 1.0:
         raise BadInput(f"--level: got {level!r}, expected a success level in [0, 1)")
     if isinstance(reps, bool) or not isinstance(reps, int) or reps < 1:
         raise BadInput(f"--reps: got {reps!r}, expected a positive integer")
     try:
-        rows = read_results(study_dir / RESULTS_NAME)
+        rows = read_results(study_dir / layout.RESULTS)
     except ValueError as err:
         raise BadInput(str(err)) from None
     if base_variation is not None and not any(
@@ -94,9 +92,9 @@ def report_main(argv: Sequence[str]) -> int:
     """``qadapt report STUDY_DIR [--out DIR] [--level L] [--base-variation NAME]``."""
     parser = argparse.ArgumentParser(
         prog="qadapt report",
-        description=f"Write report.html and summary.md from a study directory's {RESULTS_NAME}.",
+        description=f"Write report.html and summary.md from a study directory's {layout.RESULTS}.",
     )
-    parser.add_argument("study_dir", help=f"directory holding {RESULTS_NAME}")
+    parser.add_argument("study_dir", help=f"directory holding {layout.RESULTS}")
     parser.add_argument("--out", default=None,
                         help="directory for report.html and summary.md (default: the study dir)")
     parser.add_argument("--level", type=float, default=0.5,

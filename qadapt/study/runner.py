@@ -35,13 +35,11 @@ from qadapt.jobs.collect import collect_job
 from qadapt.jobs.outputs import output_dir
 from qadapt.jobs.pretrain import pretrain_job
 from qadapt.study.arms import STUDY_ARMS
-from qadapt.study.cells import FAILED_NAME, ROWS_NAME, _quoted, cell_dir
+from qadapt.study.cells import _quoted, cell_dir
 from qadapt.study.filmstrip import write_filmstrips
 from qadapt.study.plan import StudyPlan, build_plan
 from qadapt.study.report import build_report
 from qadapt.study.schema import StudyJob, register_study_schemas
-
-RESULTS_NAME = layout.RESULTS
 
 
 def _complete_dataset(path: Path) -> bool:
@@ -107,7 +105,7 @@ def _launch(cfg: StudyJob, study_dir: Path, pending: list[str]) -> int:
 def _gather(study_dir: Path, plan: StudyPlan) -> tuple[list[dict], list[str]]:
     rows, missing = [], []
     for cell in plan.cells:
-        path = cell_dir(study_dir, cell.id) / ROWS_NAME
+        path = cell_dir(study_dir, cell.id) / layout.CELL_ROWS
         if path.exists():
             rows.extend(json.loads(path.read_text()))
         else:
@@ -116,7 +114,7 @@ def _gather(study_dir: Path, plan: StudyPlan) -> tuple[list[dict], list[str]]:
 
 
 def _write_results(study_dir: Path, rows: list[dict]) -> Path:
-    path = study_dir / RESULTS_NAME
+    path = study_dir / layout.RESULTS
     write_text_durably(path, "".join(json.dumps(row, sort_keys=True) + "\n" for row in rows))
     return path
 
@@ -182,7 +180,7 @@ def study_job(cfg: StudyJob) -> int:
           f"{results}; report {report}")
     print(f"outputs written to {study_dir}")
     if missing:
-        failed = cell_dir(study_dir, missing[0]) / FAILED_NAME
+        failed = cell_dir(study_dir, missing[0]) / layout.CELL_FAILURE
         why = json.loads(failed.read_text())["error"] if failed.exists() else "see sweeps/"
         raise TrainingFailed(f"{len(missing)} of {len(plan.cells)} cells did not finish "
                              f"(first: {missing[0]}: {why}); re-run the same command to retry "
