@@ -13,6 +13,8 @@ from typing import Protocol
 import gymnasium as gym
 import numpy as np
 
+from qadapt.spaces import env_actions
+
 
 class BatchPolicy(Protocol):
     def act(self, observations: np.ndarray) -> np.ndarray: ...
@@ -20,11 +22,14 @@ class BatchPolicy(Protocol):
 
 @dataclass(frozen=True)
 class EpisodeResults:
-    """Raw per-episode figures: ``success`` [E] bool, ``returns`` [E], ``lengths`` [E] int."""
+    """Raw per-episode figures: ``success`` [E] bool, ``returns`` [E], ``lengths`` [E] int;
+    ``success_reported``: the env reported ``is_success`` at all (else success is unknown and
+    ``success`` all False)."""
 
     success: np.ndarray
     returns: np.ndarray
     lengths: np.ndarray
+    success_reported: bool = True
 
     @property
     def successes(self) -> int:
@@ -47,16 +52,20 @@ def run_episodes(
     obs, _ = envs.reset(seed=seed)
     running = np.ones(n, dtype=bool)
     success = np.zeros(n, dtype=bool)
+    reported_any = False
     returns = np.zeros(n)
     lengths = np.zeros(n, dtype=np.int64)
     for _ in range(max_steps):
-        obs, reward, terminated, truncated, info = envs.step(policy.act(obs))
+        actions = env_actions(envs.single_action_space, policy.act(obs))
+        obs, reward, terminated, truncated, info = envs.step(actions)
         returns += np.where(running, reward, 0.0)
         lengths += running
         if "is_success" in info:
             reported = np.asarray(info["is_success"], dtype=bool) & info["_is_success"]
             success |= running & reported
+            reported_any = True
         running &= ~(terminated | truncated)
         if not running.any():
-            return EpisodeResults(success=success, returns=returns, lengths=lengths)
+            return EpisodeResults(success=success, returns=returns, lengths=lengths,
+                                  success_reported=reported_any)
     raise RuntimeError(f"episodes still running after max_steps={max_steps}")

@@ -3,6 +3,8 @@
 Holds:
     BoxDescription -- a 1-D gymnasium Box: shape, dtype, per-dimension bounds.
     DiscreteDescription -- a gymnasium Discrete: n choices starting at ``start``.
+    action_bounds -- the bounds of stored actions (a Box's, or a Discrete's choices as a column).
+    env_actions -- stored-form actions as an env takes them (a Discrete's as integers).
     describe_space -- the description of a gymnasium space (Box with 1-D shape, or Discrete).
     parse_space -- a description from its JSON form, validated.
     space_difference -- the first way two space descriptions differ (one bound tolerance).
@@ -176,6 +178,35 @@ def parse_space(value: object, *, where: str) -> SpaceDescription:
         if low > high:
             raise BadInput(f"{where}: dimension {i} has low {low} above high {high}")
     return BoxDescription(shape=(width,), dtype=dtype, low=bounds["low"], high=bounds["high"])
+
+
+def action_bounds(space: gymnasium.Space) -> tuple[np.ndarray, np.ndarray]:
+    """(low, high), float32 [A], of the actions as datasets store them: a Box's bounds, or for
+    a Discrete space the one column ``start .. start + n - 1`` (a width of at least 1, so that a
+    network can map it to [-1, 1] even for a single choice).
+
+    Example:
+        >>> [b.tolist() for b in action_bounds(gymnasium.spaces.Discrete(3, start=1))]
+        [[1.0], [3.0]]
+    """
+    if isinstance(space, gymnasium.spaces.Discrete):
+        start = float(space.start)
+        return (np.array([start], dtype=np.float32),
+                np.array([start + max(int(space.n) - 1, 1)], dtype=np.float32))
+    return np.asarray(space.low, dtype=np.float32), np.asarray(space.high, dtype=np.float32)
+
+
+def env_actions(space: gymnasium.Space, actions: np.ndarray) -> np.ndarray:
+    """Actions [N, A] in stored form as a (vector) env with action space ``space`` takes them:
+    a Discrete space's column rounded to int64 [N]; a Box's unchanged.
+
+    Example:
+        >>> env_actions(gymnasium.spaces.Discrete(2), np.array([[1.0], [0.0]], np.float32))
+        array([1, 0])
+    """
+    if isinstance(space, gymnasium.spaces.Discrete):
+        return np.rint(np.asarray(actions).reshape(len(actions), -1)[:, 0]).astype(np.int64)
+    return actions
 
 
 def _shape_text(description: SpaceDescription) -> str:

@@ -2,7 +2,8 @@
 
 Holds:
     NetworkSettings -- every nets.QNetworkConfig field, as an editable config node.
-    MaximizerSettings -- every CrossEntropyMaximizer setting but the bounds, likewise.
+    MaximizerSettings -- the maximiser's kind, then every CrossEntropyMaximizer setting but
+        the bounds, likewise.
     LearnerSettings -- every learner.LearnerConfig field, likewise.
     build_runtime -- the runtime object from its node: the one place a node becomes it.
     EvalSettings -- in-training evaluation: env, variation, episodes, how often.
@@ -28,6 +29,7 @@ from qadapt.errors import BadInput
 from qadapt.learner.config import LearnerConfig
 from qadapt.learner.init.settings import InitSettings
 from qadapt.learner.source_indicator import INDICATOR_KINDS
+from qadapt.learner.value_head import AUTO
 from qadapt.maximize import CrossEntropyMaximizer
 from qadapt.nets import QNetworkConfig
 
@@ -44,10 +46,16 @@ def _node_field(default: Any) -> Any:
     return field(default=default)
 
 
-def _settings_of(name: str, runtime: type, exclude: tuple[str, ...] = ()) -> type:
+def _settings_of(name: str, runtime: type, exclude: tuple[str, ...] = (),
+                 leading: tuple[tuple[str, type, Any], ...] = (),
+                 undecided: dict[str, tuple[type, Any]] | None = None) -> type:
     """An editable config-node dataclass with exactly the runtime object's fields, types and
-    defaults: a runtime dataclass's fields, or a class's constructor parameters. The runtime
-    object stays the one schema; the node only lets Hydra merge overrides into it."""
+    defaults: a runtime dataclass's fields, or a class's constructor parameters (after the
+    ``leading`` (name, type, default) fields, which choose among runtime objects). The runtime
+    object stays the one schema; the node only lets Hydra merge overrides into it.
+    ``undecided`` fields get a (type, default) that the job settles before building the object
+    ("auto": chosen from the data; None: taken from the base checkpoint, or the runtime's
+    default)."""
     if dataclasses.is_dataclass(runtime):
         hints = typing.get_type_hints(runtime)
         specs = [(f.name, hints[f.name], f.default) for f in dataclasses.fields(runtime)]
@@ -55,8 +63,11 @@ def _settings_of(name: str, runtime: type, exclude: tuple[str, ...] = ()) -> typ
         hints = typing.get_type_hints(runtime.__init__)
         specs = [(p.name, hints[p.name], p.default)
                  for p in inspect.signature(runtime).parameters.values()]
+    undecided = undecided or {}
+    specs = [(n, *undecided.get(n, (t, d))) for n, t, d in specs]
+    specs = [*leading, *((n, t, d) for n, t, d in specs if n not in exclude)]
     return dataclasses.make_dataclass(
-        name, [(n, _editable(t), _node_field(d)) for n, t, d in specs if n not in exclude])
+        name, [(n, _editable(t), _node_field(d)) for n, t, d in specs])
 
 
 def build_runtime(runtime: type, node: Any, key: str, **extra: Any) -> Any:
@@ -78,10 +89,18 @@ def build_runtime(runtime: type, node: Any, key: str, **extra: Any) -> Any:
 
 
 # Config nodes of runtime objects: each has exactly the fields of the object it builds.
-NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig)
+# ``output`` and the learner's ``loss``: "auto" picks them from the data's rewards
+# (learner.value_head); the reward scale and shift: None takes the base's (fine-tuning) or 1, 0.
+NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig,
+                               undecided={"output": (str, AUTO)})
+# ``kind``: "auto" (exhaustive for a Discrete action space, CEM for a Box), "cem" or
+# "exhaustive"; the other fields are the CEM's, unused by the exhaustive search.
 MaximizerSettings = _settings_of("MaximizerSettings", CrossEntropyMaximizer,
-                                 exclude=("low", "high"))
-LearnerSettings = _settings_of("LearnerSettings", LearnerConfig)
+                                 exclude=("low", "high"), leading=(("kind", str, "auto"),))
+# conservative_weight None: the weight for the value head (learner.value_head).
+LearnerSettings = _settings_of("LearnerSettings", LearnerConfig, undecided={
+    "loss": (str, AUTO), "reward_scale": (float | None, None),
+    "reward_shift": (float | None, None), "conservative_weight": (float | None, None)})
 
 
 def build_learner_config(settings: Any) -> LearnerConfig:

@@ -188,7 +188,8 @@ def _run_step(cfg: ChainJob, index: int, name: str, round_number: int, *, explor
         "dataset": {"path": str(dataset.path), "sha256": dataset.fingerprint},
         "checkpoint": {"path": checkpoint, "sha256": load_checkpoint(checkpoint).identity},
         "training": {"steps": summary["steps"], "selected": summary["selected"],
-                     "best_success_rate": summary["best_success_rate"]},
+                     "best_success_rate": summary["best_success_rate"],
+                     "best_mean_return": summary["best_mean_return"]},
         "evaluations": _evaluations(cfg, checkpoint, seed=cfg.eval_seed),
     }
     _write_json(step_dir / layout.STEP_RECORD, step)

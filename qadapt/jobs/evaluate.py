@@ -73,7 +73,8 @@ def evaluate_checkpoint(
 
     Returns a JSON-able dict: "checkpoint" (resolved path), "checkpoint_sha256" (identity
     hash), "variation" (name), "env" ({"id", "kwargs", "wrappers"} as run), "successes",
-    "episodes", "success_rate", "wilson_low"/"wilson_high" (95% Wilson score interval),
+    "episodes", "success_rate", "wilson_low"/"wilson_high" (95% Wilson score interval; all
+    three None when the env reports no success: "success_reported" False),
     "returns" [episodes] and "lengths" [episodes] per episode, "success" [episodes] (bool per
     episode, for paired comparisons), "mean_return", "return_low"/"return_high" (95%
     percentile bootstrap of the mean, seeded with ``seed``) and "mean_length" (steps).
@@ -100,7 +101,8 @@ def evaluate_checkpoint(
     returns = np.concatenate([b.returns for b in blocks]).astype(np.float64)
     lengths = np.concatenate([b.lengths for b in blocks]).astype(np.int64)
     successes = int(success.sum())
-    wilson_low, wilson_high = wilson_interval(successes, episodes)
+    reported = all(b.success_reported for b in blocks)
+    wilson_low, wilson_high = wilson_interval(successes, episodes) if reported else (None, None)
     return_low, return_high = bootstrap_mean_interval(returns, seed=seed)
     return {
         "checkpoint": str(path),
@@ -109,7 +111,8 @@ def evaluate_checkpoint(
         "env": env_record(env_cfg, variation_cfg),
         "successes": successes,
         "episodes": episodes,
-        "success_rate": successes / episodes,
+        "success_reported": reported,
+        "success_rate": successes / episodes if reported else None,
         "wilson_low": wilson_low,
         "wilson_high": wilson_high,
         "returns": returns.tolist(),
@@ -122,22 +125,34 @@ def evaluate_checkpoint(
     }
 
 
+def _kwargs_text(result: dict[str, Any]) -> str:
+    kwargs = result.get("env", {}).get("kwargs") or {}
+    return ", ".join(f"{k}={v}" for k, v in sorted(kwargs.items())) or "-"
+
+
 def evaluation_table(results: list[dict[str, Any]]) -> str:
-    """One line per result: checkpoint, variation, success with its interval, return, length."""
+    """One line per result: checkpoint, variation and the env kwargs it ran with, success
+    with its interval ("n/a" where the env reports none), return, length."""
     names = [r["checkpoint"] for r in results]
     name_width = max(10, *(len(n) for n in names))
     variation_width = max(9, *(len(r["variation"]) for r in results))
+    kwargs_width = max(10, *(len(_kwargs_text(r)) for r in results))
     header = (f"{'checkpoint'.ljust(name_width)}  {'variation'.ljust(variation_width)}  "
-              f"{'succeeded':>11}  {'rate [95% Wilson]':<22}  "
-              f"{'mean return [95% bootstrap]':<30}  {'mean length':>11}")
+              f"{'env kwargs'.ljust(kwargs_width)}  {'succeeded':>11}  "
+              f"{'rate [95% Wilson]':<22}  {'mean return [95% bootstrap]':<30}  "
+              f"{'mean length':>11}")
     lines = [header, "-" * len(header)]
     for name, r in zip(names, results, strict=True):
-        rate = (f"{100 * r['success_rate']:5.1f}% [{100 * r['wilson_low']:5.1f}, "
-                f"{100 * r['wilson_high']:5.1f}]")
+        if r["success_rate"] is None:
+            counted, rate = f"{'n/a':>11}", "n/a (no success flag)"
+        else:
+            counted = f"{r['successes']:>5} / {r['episodes']:<3}"
+            rate = (f"{100 * r['success_rate']:5.1f}% [{100 * r['wilson_low']:5.1f}, "
+                    f"{100 * r['wilson_high']:5.1f}]")
         ret = f"{r['mean_return']:8.3f} [{r['return_low']:8.3f}, {r['return_high']:8.3f}]"
         lines.append(f"{name.ljust(name_width)}  {r['variation'].ljust(variation_width)}  "
-                     f"{r['successes']:>5} / {r['episodes']:<3}  {rate:<22}  {ret:<30}  "
-                     f"{r['mean_length']:>11.1f}")
+                     f"{_kwargs_text(r).ljust(kwargs_width)}  {counted}  {rate:<22}  "
+                     f"{ret:<30}  {r['mean_length']:>11.1f}")
     return "\n".join(lines)
 
 

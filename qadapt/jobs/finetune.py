@@ -30,6 +30,7 @@ from qadapt.learner.assembly import new_critics, observation_statistics
 from qadapt.learner.init import InitContext, init_strategy
 from qadapt.learner.source_indicator import SourceIndicator, TaggedDataset, widen_observation_input
 from qadapt.nets import QNetworkConfig
+from qadapt.spaces import action_bounds
 
 
 def run_finetune(cfg: FinetuneJob) -> dict:
@@ -46,6 +47,11 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     base = load_checkpoint(base_path, expect_observation_space=new[0].observation_space,
                            expect_action_space=new[0].action_space, what="dataset")
     network_config = QNetworkConfig.from_dict(base.metadata.network["q_network"])
+    # The base's loss and reward units unless set (checkpoints older than this record give
+    # none: its output then decides the loss).
+    learner, _ = run.settle_value_head(cfg.learner, network_config.output, datasets,
+                                       base=base.metadata.network.get("value"))
+    cfg = dataclasses.replace(cfg, learner=learner)
     indicator, base_weights = _indicator_and_weights(cfg, base, str(base_path), len(prior),
                                                      len(new), int(new[0].obs_dim))
     width = 0 if indicator is None else indicator.width
@@ -58,7 +64,7 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     def make_critics(arrays):
         # A strategy that keeps the base's normalisation gets it with the base weights.
         statistics = None if strategy.uses_base_statistics else observation_statistics(arrays)
-        critics = new_critics(int(new[0].obs_dim) + width, act_space.low, act_space.high,
+        critics = new_critics(int(new[0].obs_dim) + width, *action_bounds(act_space),
                               network_config, seed=cfg.seed, statistics=statistics)
         tagged_prior = prior if indicator is None else [
             TaggedDataset(d, indicator.values[i]) for i, d in enumerate(prior)]
@@ -76,8 +82,8 @@ def run_finetune(cfg: FinetuneJob) -> dict:
         eval_dataset=new[0], parent={"path": str(base_path), "sha256": base.identity},
         indicator=indicator,
     ))
-    print(f"finetune ({strategy.name}): {summary['steps']} gradient steps; best greedy success "
-          f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
+    print(f"finetune ({strategy.name}): {summary['steps']} gradient steps; "
+          f"{run.outcome_text(summary)}; checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")
     return summary
 

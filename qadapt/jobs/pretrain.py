@@ -14,6 +14,7 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Sequence
 
+import gymnasium as gym
 import torch
 
 from qadapt.config.hydra_entry import run_job
@@ -22,10 +23,12 @@ from qadapt.config.training_schema import (
     build_runtime,
     register_training_schemas,
 )
+from qadapt.errors import BadInput
 from qadapt.jobs import training_run as run
 from qadapt.jobs.outputs import output_dir
 from qadapt.learner.assembly import new_critics, observation_statistics
 from qadapt.nets import QNetworkConfig
+from qadapt.spaces import action_bounds
 
 
 def pretrain_job(cfg: PretrainJob) -> int:
@@ -34,10 +37,16 @@ def pretrain_job(cfg: PretrainJob) -> int:
     out = output_dir(cfg.out, "pretrain")
     datasets = run.open_sources(cfg.data)
     act_space = datasets[0].action_space.to_space()
+    if cfg.network.form == "per_action" and not isinstance(act_space, gym.spaces.Discrete):
+        raise BadInput(f"network.form: got 'per_action' for the action space {act_space}, "
+                       "expected a Discrete one (use late_fusion or concat for a Box)")
+    learner, output = run.settle_value_head(cfg.learner, cfg.network.output, datasets)
+    cfg = dataclasses.replace(cfg, learner=learner,
+                              network=dataclasses.replace(cfg.network, output=output))
     network_config = build_runtime(QNetworkConfig, cfg.network, "network")
 
     def make_critics(arrays):
-        critics = new_critics(int(datasets[0].obs_dim), act_space.low, act_space.high,
+        critics = new_critics(int(datasets[0].obs_dim), *action_bounds(act_space),
                               network_config, seed=cfg.seed,
                               statistics=observation_statistics(arrays))
         return critics, None
@@ -49,8 +58,8 @@ def pretrain_job(cfg: PretrainJob) -> int:
         network_config=network_config, make_critics=make_critics, out=out, settings=settings,
         eval_dataset=datasets[0],
     ))
-    print(f"pretrain: {summary['steps']} gradient steps; best greedy success "
-          f"{summary['best_success_rate']:.3f}; checkpoint {summary['checkpoint']}")
+    print(f"pretrain: {summary['steps']} gradient steps; {run.outcome_text(summary)}; "
+          f"checkpoint {summary['checkpoint']}")
     print(f"outputs written to {out}")
     return 0
 

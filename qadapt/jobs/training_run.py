@@ -3,7 +3,11 @@
 Holds:
     open_sources -- open and verify datasets, checking they share one pair of spaces.
     config_digest -- SHA-256 of the settings that decide a run's result.
-    build_maximizer -- the CEM maximiser for a dataset's action space.
+    build_maximizer -- the maximiser the settings ask for, for a dataset's action space.
+    settle_value_head -- the learner's loss and reward scale and the network's output, "auto"
+        and inherited settings made concrete (one line says what was chosen).
+    value_record -- what a checkpoint records of them, for fine-tuning to inherit.
+    outcome_text -- the selected checkpoint's evaluation in words.
     make_evaluator -- the in-training evaluator (None when evaluation is off).
     write_run_records -- summary.json and lineage.json in the run directory.
     TrainingRequest -- what a training job hands run_training.
@@ -24,6 +28,7 @@ from qadapt import layout
 from qadapt.checkpoint import CheckpointMetadata, DatasetReference
 from qadapt.config.training_schema import (
     EvalSettings,
+    LearnerSettings,
     MaximizerSettings,
     TrainingRunSettings,
     build_learner_config,
@@ -32,11 +37,23 @@ from qadapt.data import MixtureSampler, open_dataset
 from qadapt.envs import make_recorded_env, make_vector_env
 from qadapt.errors import BadInput
 from qadapt.files import write_text_durably
-from qadapt.learner import FittedQLearner
+from qadapt.learner import FittedQLearner, LearnerConfig
 from qadapt.learner.assembly import transition_arrays
 from qadapt.learner.source_indicator import TaggedDataset, TaggedSampler
-from qadapt.learner.trainer import GreedyEvaluator, Trainer, TrainingPlan, success_rate
-from qadapt.maximize import build_maximizer as maximizer_for
+from qadapt.learner.trainer import (
+    GreedyEvaluator,
+    Trainer,
+    TrainingPlan,
+    mean_return,
+    success_rate,
+)
+from qadapt.learner.value_head import (
+    AUTO,
+    PENALTY_OF_OUTPUT,
+    RewardRange,
+    choose_value_head,
+)
+from qadapt.maximize import maximizer_for_space, resolve_kind
 from qadapt.spaces import check_spaces
 
 
@@ -55,13 +72,66 @@ def config_digest(settings: dict[str, Any]) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
-def build_maximizer(settings: MaximizerSettings, action_space):
-    """The CEM maximiser for ``action_space`` from the ``maximizer`` node (maximize's factory,
-    the one place a maximiser is built); a bad setting or space is BadInput."""
+def build_maximizer(settings: MaximizerSettings, action_space, say=print):
+    """The maximiser the ``maximizer`` node asks for (its kind, "auto" resolved for
+    ``action_space``), built by maximize's factory; a bad setting or a kind the space does
+    not allow is BadInput. ``say`` gets the one line naming the choice."""
+    values = dataclasses.asdict(settings)
+    kind = values.pop("kind")
     try:
-        return maximizer_for("cem", action_space, **dataclasses.asdict(settings))
+        chosen = resolve_kind(kind, action_space)
+        maximizer = maximizer_for_space(kind, action_space, values)
     except ValueError as err:
-        raise BadInput(f"maximizer: {err}") from err
+        raise BadInput(f"maximizer.{err}") from err
+    why = " (auto: the action space is " + type(action_space).__name__ + ")" if (
+        kind == "auto") else ""
+    if chosen == "exhaustive":
+        say(f"maximizer: exhaustive over the {action_space.n} choices of {action_space}{why}")
+    else:
+        say(f"maximizer: CEM, {settings.samples} samples x {settings.iterations} iterations"
+            f"{why}")
+    return maximizer
+
+
+def value_record(learner: LearnerConfig, output: str) -> dict[str, Any]:
+    """The units of a run's Q-values, as checkpoints record them (``network["value"]``)."""
+    return {"output": output, "loss": learner.loss, "gamma": learner.gamma,
+            "reward_scale": learner.reward_scale, "reward_shift": learner.reward_shift}
+
+
+def settle_value_head(learner: LearnerSettings, output: str, datasets,
+                      base: dict[str, Any] | None = None, say=print) -> tuple[Any, str]:
+    """(learner node, network output) with nothing left undecided.
+
+    The reward scale and shift: as set, else the base checkpoint's (``base``, its
+    ``value_record``), else 1 and 0. The output and loss: learner.value_head's choice from the
+    rewards of ``datasets`` after that scale; a base's output is fixed and its loss is kept
+    unless the loss is set. A combination that cannot work is BadInput (one line).
+    """
+    base = base or {}
+    scale = learner.reward_scale if learner.reward_scale is not None else base.get(
+        "reward_scale", 1.0)
+    shift = learner.reward_shift if learner.reward_shift is not None else base.get(
+        "reward_shift", 0.0)
+    loss = learner.loss
+    if loss == AUTO and "loss" in base:
+        loss = base["loss"]
+    rewards = RewardRange.of_datasets(datasets, scale, shift)
+    try:
+        head = choose_value_head(output, loss, rewards)
+    except ValueError as err:
+        where = "learner." if str(err).startswith("loss") else "network."
+        whose = f" (the base checkpoint has a {output} output)" if base else ""
+        raise BadInput(f"{where}{err}{whose}") from err
+    weight = learner.conservative_weight
+    if weight is None:
+        weight = PENALTY_OF_OUTPUT[head.output]
+    say(head.describe() + ("" if (scale, shift) == (1.0, 0.0) else
+                           f"; rewards scaled as {scale:g} * r + {shift:g}")
+        + f"; CQL weight {weight:g}")
+    settled = dataclasses.replace(learner, loss=head.loss, reward_scale=float(scale),
+                                  reward_shift=float(shift), conservative_weight=float(weight))
+    return settled, head.output
 
 
 def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=None):
@@ -84,6 +154,16 @@ def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=No
                  what=f"evaluation env {name}")
     return GreedyEvaluator(make, maximizer, settings.episodes, settings.seed,
                            acting_columns=acting_columns)
+
+
+def outcome_text(summary: dict[str, Any]) -> str:
+    """The selected checkpoint's evaluation in words: its greedy success, or (for an env that
+    reports none) its mean return; "no evaluation" when evaluation was off."""
+    if summary.get("best") is None:
+        return "no in-training evaluation"
+    rate = summary["best_success_rate"]
+    success = "n/a (the env reports no success)" if rate is None else f"{rate:.3f}"
+    return f"best greedy success {success}, mean return {summary['best_mean_return']:.4g}"
 
 
 def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str, Any]) -> None:
@@ -166,8 +246,10 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
     metadata = CheckpointMetadata(
         observation_space=obs_space, action_space=act_space,
         network={"q_network": network_config.to_dict(),
-                 "maximizer": dataclasses.asdict(maximizer_settings),
-                 "source_indicator": None if indicator is None else indicator.to_json()},
+                 "maximizer": {**dataclasses.asdict(maximizer_settings),
+                               "kind": resolve_kind(maximizer_settings.kind, act_space)},
+                 "source_indicator": None if indicator is None else indicator.to_json(),
+                 "value": value_record(learner_config, network_config.output)},
         env_id=environment.id, env_kwargs=dict(environment.kwargs),
         gradient_step=0, config_digest=digest,
         parent_checkpoint=None if parent is None else parent["sha256"],
@@ -190,6 +272,7 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
         "best": outcome.best,
         "best_success_rate": success_rate(outcome.best),
         "last_success_rate": success_rate(outcome.history[-1] if outcome.history else None),
+        "best_mean_return": mean_return(outcome.best),
         "checkpoint": str(result),
         "selected": "best" if outcome.best_path else "last",
         "config_digest": digest,

@@ -58,6 +58,9 @@ class LearnerConfig:
         anchor_weight: weight of the L2 penalty towards given anchor weights (0 = off).
         ema_decay: decay of the exponential moving average of critic 0 used for acting
             (0 = act with the online weights).
+        reward_scale, reward_shift: the learner trains on ``reward_scale * r + reward_shift``
+            (1 and 0: the data's own rewards); Q-values are then in those units, and
+            ``original_value`` maps them back.
         q_limit: the divergence guard stops training when |Q| exceeds this.
         refresh_chunk: states per maximiser call during a refresh (bounds memory; 512 keeps
             the head's activations in cache: about 3x faster than 4096, scripts/bench_learner).
@@ -87,6 +90,8 @@ class LearnerConfig:
     conservative_maximum: str = "online"
     anchor_weight: float = 0.0
     ema_decay: float = 0.0
+    reward_scale: float = 1.0
+    reward_shift: float = 0.0
     q_limit: float = 1e4
     refresh_chunk: int = 512
 
@@ -132,6 +137,9 @@ class LearnerConfig:
                self.conservative_on, "'raw' or 'value'")
         _check("ema_decay", _is_num(self.ema_decay) and 0.0 <= self.ema_decay < 1.0,
                self.ema_decay, "a number in [0, 1)")
+        _check("reward_scale", _is_num(self.reward_scale) and self.reward_scale > 0,
+               self.reward_scale, "a positive number")
+        _check("reward_shift", _is_num(self.reward_shift), self.reward_shift, "a finite number")
         _check("q_limit", _is_num(self.q_limit) and self.q_limit > 0, self.q_limit,
                "a positive number")
         _check("refresh_chunk", _is_int(self.refresh_chunk) and self.refresh_chunk >= 1,
@@ -139,3 +147,14 @@ class LearnerConfig:
 
     def to_dict(self) -> dict:
         return asdict(self)
+
+    def original_value(self, q: float) -> float:
+        """A Q-value of the scaled rewards in the data's own units: rewards were
+        ``scale * r + shift``, so a discounted sum of them is ``scale * Q + shift / (1 - gamma)``
+        for an endless episode (episodes that end earlier carry less of the shift).
+
+        Example:
+            >>> LearnerConfig(reward_scale=0.5, reward_shift=1.0).original_value(12.0)
+            4.0
+        """
+        return (q - self.reward_shift / (1.0 - self.gamma)) / self.reward_scale

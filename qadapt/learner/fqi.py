@@ -94,6 +94,7 @@ class FittedQLearner:
         net = critics.online[0]
         self._action_low = net.action_centre - net.action_half_range
         self._action_span = 2 * net.action_half_range
+        self._choices = getattr(maximizer, "candidates", None)
         self.cache = None
         if config.target_mode == "refresh":
             self.cache = TargetCache(
@@ -120,6 +121,7 @@ class FittedQLearner:
         self.cache.refresh(
             self.critics, self.maximizer, self.sources, self.config.gamma, self.generator,
             self.config.refresh_chunk, self._clamp, self.config.refresh_blend,
+            (self.config.reward_scale, self.config.reward_shift),
         )
         self.last_refresh_seconds = time.perf_counter() - start
 
@@ -133,7 +135,8 @@ class FittedQLearner:
             values, _ = bootstrap_values(
                 self.critics, self.maximizer, batch.next_observations, self.generator
             )
-            targets = td_targets(batch.rewards, batch.terminated, values, cfg.gamma)
+            targets = td_targets(batch.rewards, batch.terminated, values, cfg.gamma,
+                                 (cfg.reward_scale, cfg.reward_shift))
             if self._clamp is not None:
                 targets = targets.clamp(*self._clamp)
         wants_online = cfg.conservative_maximum == "online" or self.cache is None
@@ -145,6 +148,15 @@ class FittedQLearner:
                     lambda c: first.score(code, c), code.shape[0], generator=self.generator
                 ).actions
         return targets, state_actions
+
+    def _random_actions(self, states: int, count: int, width: int) -> torch.Tensor:
+        """[states, count, width] uniform actions for the regulariser: over the maximiser's
+        finite set when it has one (a Discrete space's choices), else over the Box."""
+        if self._choices is not None:
+            pick = torch.randint(len(self._choices), (states, count), generator=self.generator)
+            return self._choices[pick]
+        return self._action_low + self._action_span * torch.rand(
+            states, count, width, generator=self.generator)
 
     # -- one step ------------------------------------------------------------------------
     def update(self, batch: Batch) -> dict[str, torch.Tensor]:
@@ -161,9 +173,7 @@ class FittedQLearner:
             code = net.encode(batch.observations)
             if cfg.conservative_weight > 0:
                 b = code.shape[0]
-                uniform = self._action_low + self._action_span * torch.rand(
-                    b, cfg.conservative_samples, net.action_dim, generator=self.generator
-                )
+                uniform = self._random_actions(b, cfg.conservative_samples, net.action_dim)
                 parts = [batch.actions[:, None], uniform]
                 if state_actions is not None:
                     parts.insert(1, state_actions[:, None])

@@ -16,8 +16,9 @@ from qadapt.errors import BadInput
 from qadapt.layout import resolve_checkpoint
 from qadapt.learner.policy import QPolicy
 from qadapt.learner.source_indicator import ActingTag, SourceIndicator
-from qadapt.maximize import build_maximizer
+from qadapt.maximize import maximizer_for_space
 from qadapt.nets import QNetworkConfig, build_q_network
+from qadapt.spaces import action_bounds
 
 
 def load_q_network(path: str | Path, observation_space=None, action_space=None,
@@ -30,9 +31,7 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
     acting = {k[len("acting."):]: v for k, v in loaded.weights.items() if k.startswith("acting.")}
     if not acting:
         raise BadInput(f"{path}: holds no acting network weights")
-    space = meta.action_space
-    low = torch.as_tensor(space.low, dtype=torch.float32)
-    high = torch.as_tensor(space.high, dtype=torch.float32)
+    low, high = (torch.as_tensor(b) for b in action_bounds(meta.action_space))
     indicator = SourceIndicator.from_json(meta.network.get("source_indicator"), str(path))
     width = 0 if indicator is None else indicator.width
     network = build_q_network(int(meta.observation_space.shape[0]) + width, low, high,
@@ -56,8 +55,11 @@ def checkpoint_policy(path, env, seed: int, gaussian_std: float = 0.0, epsilon: 
     path = resolve_checkpoint(path, key="policy.checkpoint")
     network, loaded = load_q_network(path, env.single_observation_space,
                                      env.single_action_space)
-    try:  # the CEM's own defaults unless settings are given (maximize's factory)
-        maximizer = build_maximizer("cem", env.single_action_space, **(maximizer_settings or {}))
+    # The kind the checkpoint was trained with ("auto" for older ones): exhaustive for a
+    # Discrete space; CEM with its own defaults unless settings are given.
+    kind = loaded.metadata.network.get("maximizer", {}).get("kind", "auto")
+    try:
+        maximizer = maximizer_for_space(kind, env.single_action_space, maximizer_settings)
     except ValueError as err:
         raise BadInput(f"{path}: {err}") from err
     return QPolicy(network, maximizer, seed=seed, gaussian_std=gaussian_std, epsilon=epsilon,

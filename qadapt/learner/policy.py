@@ -23,7 +23,7 @@ class QPolicy:
         maximizer: the action maximiser (CEM for Box actions).
         seed: seed of the policy's own random stream.
         gaussian_std: std of Gaussian noise added to the greedy action, as a fraction of
-            the half-range of each action dimension (0 = greedy).
+            the half-range of each action dimension (0 = greedy); Box actions only.
         epsilon: probability of replacing an action by a uniform random one.
         provenance: extra facts for ``describe()`` (e.g. the checkpoint's hash).
 
@@ -52,6 +52,12 @@ class QPolicy:
         self.generator = torch.Generator().manual_seed(int(seed))
         self._low = (network.action_centre - network.action_half_range).clone()
         self._high = (network.action_centre + network.action_half_range).clone()
+        # A maximiser over a finite set (a Discrete space's choices): random actions are drawn
+        # from that set, and Gaussian noise, which would leave it, does not apply (describe()
+        # then reports a std of 0; epsilon is the exploration there).
+        self._choices = getattr(maximizer, "candidates", None)
+        if self._choices is not None:
+            self.gaussian_std = 0.0
 
     def describe(self) -> dict[str, Any]:
         return {
@@ -75,9 +81,14 @@ class QPolicy:
             actions = actions + noise * self.gaussian_std * self.network.action_half_range
         if self.epsilon > 0:
             swap = torch.rand(actions.shape[0], generator=self.generator) < self.epsilon
-            uniform = self._low + (self._high - self._low) * torch.rand(
-                actions.shape, generator=self.generator
-            )
+            if self._choices is not None:
+                pick = torch.randint(len(self._choices), (actions.shape[0],),
+                                     generator=self.generator)
+                uniform = self._choices[pick]
+            else:
+                uniform = self._low + (self._high - self._low) * torch.rand(
+                    actions.shape, generator=self.generator
+                )
             actions = torch.where(swap[:, None], uniform, actions)
         return torch.clamp(actions, self._low, self._high).numpy()
 

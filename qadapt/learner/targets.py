@@ -66,9 +66,13 @@ def bootstrap_values(
 
 
 def td_targets(
-    rewards: torch.Tensor, terminated: torch.Tensor, bootstrap: torch.Tensor, gamma: float
+    rewards: torch.Tensor, terminated: torch.Tensor, bootstrap: torch.Tensor, gamma: float,
+    reward_map: tuple[float, float] = (1.0, 0.0),
 ) -> torch.Tensor:
     """One-step targets; only termination stops bootstrapping, truncation does not."""
+    scale, shift = reward_map
+    if (scale, shift) != (1.0, 0.0):
+        rewards = rewards * scale + shift
     return rewards + gamma * (1.0 - terminated) * bootstrap
 
 
@@ -106,6 +110,7 @@ class TargetCache:
         chunk: int,
         clamp: tuple[float, float] | None = None,
         blend: float = 1.0,
+        reward_map: tuple[float, float] = (1.0, 0.0),
     ) -> None:
         """Recompute every source's targets with the current target critics.
 
@@ -123,7 +128,7 @@ class TargetCache:
                     initial=self.next_actions[s][rows] if warm else None,
                 )
                 y = td_targets(_tensor(source.rewards[rows]), _tensor(source.terminated[rows]),
-                               values, gamma)
+                               values, gamma, reward_map)
                 if clamp is not None:
                     y = y.clamp(*clamp)
                 self.targets[s][rows] = keep * self.targets[s][rows] + (1.0 - keep) * y

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import torch
 from torch.utils.tensorboard import SummaryWriter
 from tqdm import tqdm
@@ -213,13 +214,16 @@ class Trainer:
     def _evaluate(self, log) -> None:
         result = self.evaluator(self.learner.acting_network())
         record = {"step": self.learner.step, "successes": result.successes,
-                  "episodes": result.episodes}
+                  "episodes": result.episodes,
+                  "mean_return": round(float(np.mean(result.returns)), 6),
+                  "success_reported": bool(result.success_reported)}
         self.outcome.history.append(record)
         if log is not None:
-            log.add_scalar("eval/success_rate", result.successes / result.episodes,
-                           self.learner.step)
-        best = self.outcome.best
-        if best is None or record["successes"] > best["successes"]:
+            if result.success_reported:
+                log.add_scalar("eval/success_rate", result.successes / result.episodes,
+                               self.learner.step)
+            log.add_scalar("eval/mean_return", record["mean_return"], self.learner.step)
+        if better_evaluation(record, self.outcome.best):
             self.outcome.best = record
             self._save_best(record)
 
@@ -267,5 +271,30 @@ class Trainer:
         return self.outcome
 
 
-def success_rate(record: dict[str, int] | None) -> float:
-    return math.nan if not record else record["successes"] / record["episodes"]
+def better_evaluation(record: dict[str, Any], best: dict[str, Any] | None) -> bool:
+    """The selection rule for ``checkpoints/best``: more greedy successes when the env
+    reports success, a higher mean return when it does not (older records without the key
+    count as reporting). Strictly better only: on a tie the earlier checkpoint stays.
+
+    Example:
+        >>> better_evaluation({"successes": 3, "mean_return": -200.0, "success_reported": False},
+        ...                   {"successes": 3, "mean_return": -250.0, "success_reported": False})
+        True
+    """
+    if best is None:
+        return True
+    if record.get("success_reported", True):
+        return record["successes"] > best["successes"]
+    return record["mean_return"] > best.get("mean_return", -math.inf)
+
+
+def success_rate(record: dict[str, Any] | None) -> float | None:
+    """Greedy success of an evaluation record; None without one, or when the env reports no
+    success."""
+    if not record or not record.get("success_reported", True):
+        return None
+    return record["successes"] / record["episodes"]
+
+
+def mean_return(record: dict[str, Any] | None) -> float | None:
+    return None if not record else record.get("mean_return")

@@ -84,6 +84,24 @@ class ExhaustiveMaximizer(ActionMaximizer):
         n = positive_int("n", n)
         return cls(torch.eye(n, dtype=torch.float32), floats_per_chunk=floats_per_chunk)
 
+    @classmethod
+    def for_choices(
+        cls, n: int, start: int = 0, floats_per_chunk: int = DEFAULT_FLOATS_PER_CHUNK
+    ) -> ExhaustiveMaximizer:
+        """The choices ``start .. start + n - 1`` of a gymnasium ``Discrete(n, start)`` as a
+        one-column candidate set [n, 1]: the form datasets store a Discrete action in, so the
+        chosen action is the action itself.
+
+        Example:
+            >>> ExhaustiveMaximizer.for_choices(3, start=1).candidates.flatten().tolist()
+            [1.0, 2.0, 3.0]
+        """
+        n = positive_int("n", n)
+        if isinstance(start, bool) or not isinstance(start, int):
+            raise ValueError(f"start: got {start!r}, expected an integer")
+        column = torch.arange(start, start + n, dtype=torch.float32)[:, None]
+        return cls(column, floats_per_chunk=floats_per_chunk)
+
     @property
     def candidates(self) -> torch.Tensor:
         """The candidate set, float32 [C, A] (a copy)."""

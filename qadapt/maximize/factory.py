@@ -4,6 +4,9 @@ Holds:
     MaximizerBuilder -- the signature of one registry entry: (action_space, **settings).
     MAXIMIZERS -- the registry: kind name -> builder.
     build_maximizer -- look a kind up in the registry and build it for an action space.
+    KINDS -- what a config may name: "auto" and the registry's kinds.
+    resolve_kind -- "auto" made concrete for a space: exhaustive for Discrete, CEM for a Box.
+    maximizer_for_space -- the maximiser a job's settings (kind plus CEM settings) ask for.
 """
 
 from __future__ import annotations
@@ -61,7 +64,8 @@ def _build_cem(action_space: gym.spaces.Space, **settings) -> CrossEntropyMaximi
 def _build_exhaustive(
     action_space: gym.spaces.Space, candidates: object = None, **settings
 ) -> ExhaustiveMaximizer:
-    """One-hot candidates for Discrete(n); a Box needs an explicit candidate list inside it."""
+    """Every choice of a Discrete space, in the one-column form datasets store it in; a Box
+    needs an explicit candidate list inside it."""
     if isinstance(action_space, gym.spaces.Discrete):
         if candidates is not None:
             raise ValueError(
@@ -69,7 +73,8 @@ def _build_exhaustive(
                 "(its one-hot candidates are used)"
             )
         _check_setting_names("exhaustive", settings, ExhaustiveMaximizer, exclude=("candidates",))
-        return ExhaustiveMaximizer.for_discrete(int(action_space.n), **settings)
+        return ExhaustiveMaximizer.for_choices(int(action_space.n), int(action_space.start),
+                                                **settings)
     if isinstance(action_space, gym.spaces.Box):
         box = _flat_box(action_space, "exhaustive")
         if candidates is None:
@@ -111,7 +116,7 @@ def build_maximizer(kind: str, action_space: gym.spaces.Space, **settings) -> Ac
         >>> build_maximizer("cem", gym.spaces.Box(-1.0, 1.0, (4,)), samples=32).samples
         32
         >>> build_maximizer("exhaustive", gym.spaces.Discrete(5)).action_dim
-        5
+        1
     """
     if kind not in MAXIMIZERS:
         raise ValueError(f"kind: got {kind!r}, expected one of {sorted(MAXIMIZERS)}")
@@ -120,3 +125,44 @@ def build_maximizer(kind: str, action_space: gym.spaces.Space, **settings) -> Ac
             f"action_space: got {type(action_space).__name__}, expected a gymnasium Space"
         )
     return MAXIMIZERS[kind](action_space, **settings)
+
+
+KINDS = ("auto", *MAXIMIZERS)
+
+
+def resolve_kind(kind: str, action_space: gym.spaces.Space) -> str:
+    """The concrete kind for ``action_space``: "auto" is "exhaustive" for a Discrete space
+    (every choice scored: exact, and cheap for the small spaces of control tasks) and "cem" for
+    a Box; an explicit kind is returned as given (its builder checks the space).
+
+    Example:
+        >>> resolve_kind("auto", gym.spaces.Discrete(2)), resolve_kind("auto", gym.spaces.Box(0, 1))
+        ('exhaustive', 'cem')
+    """
+    if kind not in KINDS:
+        raise ValueError(f"kind: got {kind!r}, expected one of {', '.join(KINDS)}")
+    if kind != "auto":
+        return kind
+    return "exhaustive" if isinstance(action_space, gym.spaces.Discrete) else "cem"
+
+
+def maximizer_for_space(
+    kind: str, action_space: gym.spaces.Space, cem_settings: dict | None = None
+) -> ActionMaximizer:
+    """The maximiser a job's settings ask for: ``kind`` (one of KINDS) resolved for the space;
+    ``cem_settings`` (CrossEntropyMaximizer's, without the bounds) apply to CEM only, since
+    the exhaustive search has none. A Box with kind "exhaustive" is refused: a job has no
+    candidate list to give it.
+
+    Example:
+        >>> type(maximizer_for_space("auto", gym.spaces.Discrete(3), {"samples": 8})).__name__
+        'ExhaustiveMaximizer'
+    """
+    chosen = resolve_kind(kind, action_space)
+    if chosen == "exhaustive" and isinstance(action_space, gym.spaces.Box):
+        raise ValueError(
+            f"kind: got 'exhaustive' for {action_space}, expected a Discrete action space "
+            "(a Box has no finite action set; use 'cem' or 'auto')"
+        )
+    settings = (cem_settings or {}) if chosen == "cem" else {}
+    return build_maximizer(chosen, action_space, **settings)

@@ -6,6 +6,8 @@ Holds:
     LateFusionQ -- the torso sees only the state; the head's first layer splits into a state
         part (computed once per state) and an action part (computed per candidate).
     ConcatQ -- one MLP over the concatenated, normalised observation and action.
+    PerActionQ -- for a Discrete action space: one MLP over the state with one output per
+        choice (the form of Mnih et al. 2015's deep Q-network); an action picks its output.
     build_q_network -- pick the form named in the config.
 
 Both forms normalise observations with statistics stored as buffers (saved with the weights)
@@ -21,7 +23,7 @@ from dataclasses import dataclass
 import torch
 from torch import nn
 
-FORMS = ("late_fusion", "concat")
+FORMS = ("late_fusion", "concat", "per_action")
 OUTPUTS = ("sigmoid", "linear")
 
 
@@ -37,7 +39,8 @@ class QNetworkConfig:
     """Shape of a Q-network.
 
     Args:
-        form: "late_fusion" (default) or "concat".
+        form: "late_fusion" (default), "concat" or "per_action" (Discrete action spaces only:
+            one output per choice; ``head`` is unused).
         torso: hidden widths of the state torso (late fusion) or of the whole MLP (concat).
         head: hidden widths of the late-fusion head; the first is the fusion layer.
         output: "sigmoid" (Q in (0, 1), trained with cross-entropy) or "linear".
@@ -231,9 +234,42 @@ class ConcatQ(QNetwork):
         return self.head_out(self.torso(joint)).squeeze(-1)
 
 
+class PerActionQ(QNetwork):
+    """Q(s, ·) for every choice at once: an MLP over the state ending in one output per
+    choice. Actions are the stored one-column form of a Discrete space (integers from
+    ``action_low`` to ``action_high``); an action selects its output, so scoring K candidates
+    costs one network evaluation per state.
+
+    Example:
+        >>> net = PerActionQ(4, torch.zeros(1), torch.ones(1), QNetworkConfig(
+        ...     form="per_action", torso=(16,)))
+        >>> net.score(net.encode(torch.zeros(3, 4)), torch.tensor([[[0.0], [1.0]]] * 3)).shape
+        torch.Size([3, 2])
+    """
+
+    def __init__(self, obs_dim, action_low, action_high, config: QNetworkConfig) -> None:
+        super().__init__(obs_dim, action_low, action_high, config)
+        if self.action_dim != 1:
+            raise ValueError(f"form: got 'per_action' for {self.action_dim} action "
+                             "dimensions, expected the one column of a Discrete space")
+        self.choices = int(round(float(2 * self.action_half_range[0]))) + 1
+        self.torso = _mlp([obs_dim, *config.torso], config.layer_norm)
+        self.head_out = nn.Linear(config.torso[-1], self.choices)
+        self._init_output(self.head_out)
+
+    def encode(self, obs: torch.Tensor) -> torch.Tensor:
+        """Raw outputs [B, choices], one per choice."""
+        return self.head_out(self.torso(self._norm_obs(obs)))
+
+    def score(self, code: torch.Tensor, actions: torch.Tensor) -> torch.Tensor:
+        first = self.action_centre[0] - self.action_half_range[0]
+        index = torch.round(actions[..., 0] - first).long().clamp(0, self.choices - 1)
+        return torch.gather(code, 1, index)
+
+
 def build_q_network(
     obs_dim: int, action_low, action_high, config: QNetworkConfig
 ) -> QNetwork:
-    """A Q-network of ``config.form`` for ``obs_dim`` observations and Box action bounds."""
-    cls = LateFusionQ if config.form == "late_fusion" else ConcatQ
-    return cls(obs_dim, action_low, action_high, config)
+    """A Q-network of ``config.form`` for ``obs_dim`` observations and action bounds."""
+    forms = {"late_fusion": LateFusionQ, "concat": ConcatQ, "per_action": PerActionQ}
+    return forms[config.form](obs_dim, action_low, action_high, config)

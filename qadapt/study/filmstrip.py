@@ -25,6 +25,7 @@ from qadapt.envs import env_creator, env_kwargs, make_vector_env
 from qadapt.errors import BadInput
 from qadapt.layout import resolve_checkpoint
 from qadapt.learner.loading import checkpoint_policy
+from qadapt.spaces import env_actions
 
 FRAME_STEP = 2
 FILMSTRIP_SEED = 4242
@@ -41,7 +42,8 @@ def _frames(env_id: str, checkpoint: str, variation,
         obs, _ = env.reset(seed=FILMSTRIP_SEED + episode)
         frames, success, done, step = [env.render()], False, False, 0
         while not done:
-            obs, _, terminated, truncated, info = env.step(policy.act(obs[None])[0])
+            action = env_actions(env.action_space, policy.act(obs[None]))[0]
+            obs, _, terminated, truncated, info = env.step(action)
             step += 1
             done = terminated or truncated
             success = success or bool(info.get("is_success", False))

@@ -103,6 +103,7 @@ class Workspace:
     root: Path
     dataset: Path          # pick cell, scripted picker, 8 episodes (observations (61,))
     other_dataset: Path    # Pendulum-v1, random policy, 2 episodes (observations (3,))
+    discrete_dataset: Path  # CartPole-v1 (a Discrete(2) action space), random policy, 2 episodes
     arrays: Path           # dataset's step arrays exported to an .npz (for ``qadapt import``)
     run: Path              # a finished pretrain run on ``dataset``
     checkpoint: Path       # run/checkpoints/last
@@ -117,11 +118,14 @@ def build_workspace(root: Path) -> Workspace:
     root.mkdir(parents=True, exist_ok=True)
     hydra_dir = root.parent / f"{root.name}-hydra"
     dataset, other, run = root / "pick", root / "pendulum", root / "base"
+    discrete = root / "cartpole"
     steps = [
         ["collect", "policy=scripted", "episodes=8", "num_envs=8", "seed=0", f"out={dataset}",
          "progress=false"],
         ["collect", "env=gym", "env.id=Pendulum-v1", "policy=random", "episodes=2",
          "num_envs=2", "seed=0", f"out={other}", "progress=false"],
+        ["collect", "env=gym", "env.id=CartPole-v1", "policy=random", "episodes=2",
+         "num_envs=2", "seed=0", f"out={discrete}", "progress=false"],
         ["pretrain", f"data={dataset}", "steps=20", "eval.every=10", "eval.episodes=2",
          "checkpoint_every=10", f"out={run}", *SMALL_TRAINING],
     ]
@@ -133,7 +137,7 @@ def build_workspace(root: Path) -> Workspace:
     names = ("observations", "actions", "rewards", "next_observations", "terminated",
              "truncated")
     np.savez(arrays, **{n: np.load(dataset / f"{n}.npy", allow_pickle=False) for n in names})
-    return Workspace(root, dataset, other, arrays, run, run / "checkpoints" / "last")
+    return Workspace(root, dataset, other, discrete, arrays, run, run / "checkpoints" / "last")
 
 
 def tree_digests(root: Path) -> dict[str, str]:
@@ -926,6 +930,40 @@ def _collect_perturbation_on_other_env(ws, scratch):
     return (["collect", "env=gym", "env.id=Pendulum-v1", "variation=finger_offset",
              "policy=random", "episodes=2", f"out={scratch / 'out'}", "progress=false"],
             ["Pendulum-v1", "perturbations", "variation.wrappers"])
+
+
+# Action spaces and value heads (gymnasium's CartPole-v1 has a Discrete(2) action space,
+# Pendulum-v1 a Box and rewards in [-16.3, 0], per their documentation) ---------------------
+@case("config", "pretrain")
+def _pretrain_cem_on_discrete(ws, scratch):
+    """pretrain: maximizer=cem on a Discrete action space"""
+    return _pretrain(ws.discrete_dataset, scratch, "maximizer=cem"), ["cem", "Discrete"]
+
+
+@case("config", "pretrain")
+def _pretrain_exhaustive_on_box(ws, scratch):
+    """pretrain: maximizer=exhaustive on a Box action space"""
+    return _pretrain(ws.other_dataset, scratch, "maximizer=exhaustive"), ["exhaustive", "Box"]
+
+
+@case("config", "pretrain")
+def _pretrain_per_action_on_box(ws, scratch):
+    """pretrain: the one-output-per-choice network on a Box action space"""
+    return _pretrain(ws.other_dataset, scratch, "network=per_action"), ["per_action", "Box"]
+
+
+@case("config", "pretrain")
+def _pretrain_sigmoid_on_negative_rewards(ws, scratch):
+    """pretrain: a sigmoid output forced on rewards outside [0, 1]"""
+    return (_pretrain(ws.other_dataset, scratch, "network.output=sigmoid"),
+            ["network.output", "sigmoid", "[0, 1]"])
+
+
+@case("config", "finetune")
+def _finetune_loss_against_base_head(ws, scratch):
+    """finetune: a loss override that conflicts with the base's sigmoid output"""
+    return (_finetune(ws, scratch, ws.best, None, "learner.loss=mse"),
+            ["learner.loss", "sigmoid", "base checkpoint"])
 
 
 # Chain ---------------------------------------------------------------------------------------
