@@ -18,6 +18,9 @@ import pytest
 from omegaconf import OmegaConf
 
 from qadapt.config.training_schema import (
+    LEARNER_UNDECIDED,
+    MAXIMIZER_CHOICE,
+    NETWORK_UNDECIDED,
     LearnerSettings,
     MaximizerSettings,
     NetworkSettings,
@@ -40,6 +43,11 @@ def _runtime_settings(runtime) -> dict[str, object]:
             if name not in ("low", "high")}
 
 
+# Fields whose node default is left for the job to settle from the data ("auto") or the base
+# checkpoint (None), and the field that chooses among maximisers.
+UNDECIDED = {"network": {k: d for k, (_, d) in NETWORK_UNDECIDED.items()},
+             "maximizer": {}, "learner": {k: d for k, (_, d) in LEARNER_UNDECIDED.items()}}
+CHOOSING = {"network": {}, "maximizer": {n: d for n, _, d in MAXIMIZER_CHOICE}, "learner": {}}
 GROUPS = [("network", NetworkSettings, QNetworkConfig),
           ("maximizer", MaximizerSettings, CrossEntropyMaximizer),
           ("learner", LearnerSettings, LearnerConfig)]
@@ -50,7 +58,7 @@ def test_the_node_has_exactly_the_runtime_settings_and_defaults(group, node, run
     made = node()
     defaults = {k: tuple(v) if isinstance(v, list) else v
                 for k, v in dataclasses.asdict(made).items()}
-    assert defaults == _runtime_settings(runtime)
+    assert defaults == {**CHOOSING[group], **_runtime_settings(runtime), **UNDECIDED[group]}
 
 
 @pytest.mark.parametrize(("group", "node", "runtime"), GROUPS, ids=[g[0] for g in GROUPS])
@@ -60,16 +68,20 @@ def test_every_key_in_the_group_files_is_a_runtime_setting(group, node, runtime)
     accepted = set(_runtime_settings(runtime))
     for path in files:
         keys = set(OmegaConf.to_container(OmegaConf.load(path))) - {"defaults"}
-        assert keys <= accepted, f"{path.name}: {sorted(keys - accepted)} reach nothing"
+        unknown = sorted(keys - accepted - set(CHOOSING[group]))
+        assert not unknown, f"{path.name}: {unknown} reach nothing"
 
 
 def test_a_group_file_reaches_the_built_objects():
     learner_file = OmegaConf.to_container(OmegaConf.load(CONFIGS / "learner" / "per_batch.yaml"))
     learner_file.pop("defaults", None)
-    built = build_learner_config(LearnerSettings(**learner_file))
+    settled = {"loss": "mse", "reward_scale": 1.0, "reward_shift": 0.0, "learning_rate": 3e-4,
+               "refresh_every": 500}  # what the job settles before building
+    built = build_learner_config(LearnerSettings(**{**settled, **learner_file}))
     assert {k: getattr(built, k) for k in learner_file} == learner_file
 
-    network = build_runtime(QNetworkConfig, NetworkSettings(form="concat", torso=[8, 4]), "network")
+    network = build_runtime(QNetworkConfig, NetworkSettings(form="concat", torso=[8, 4],
+                                                            output="linear"), "network")
     assert (network.form, network.torso) == ("concat", (8, 4))
 
     space = gym.spaces.Box(-1.0, 1.0, (2,))
@@ -80,5 +92,5 @@ def test_a_group_file_reaches_the_built_objects():
 def test_a_bad_setting_is_refused_under_its_key():
     with pytest.raises(BadInput, match=r"^network\.form: got 'wide'"):
         build_runtime(QNetworkConfig, NetworkSettings(form="wide"), "network")
-    with pytest.raises(BadInput, match=r"^maximizer: elites"):
+    with pytest.raises(BadInput, match=r"^maximizer\.elites"):
         build_maximizer(MaximizerSettings(samples=4, elites=8), gym.spaces.Box(-1.0, 1.0, (2,)))

@@ -91,16 +91,20 @@ def build_runtime(runtime: type, node: Any, key: str, **extra: Any) -> Any:
 # Config nodes of runtime objects: each has exactly the fields of the object it builds.
 # ``output`` and the learner's ``loss``: "auto" picks them from the data's rewards
 # (learner.value_head); the reward scale and shift: None takes the base's (fine-tuning) or 1, 0.
-NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig,
-                               undecided={"output": (str, AUTO)})
+NETWORK_UNDECIDED = {"output": (str, AUTO)}
+NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig, undecided=NETWORK_UNDECIDED)
 # ``kind``: "auto" (exhaustive for a Discrete action space, CEM for a Box), "cem" or
 # "exhaustive"; the other fields are the CEM's, unused by the exhaustive search.
+MAXIMIZER_CHOICE = (("kind", str, "auto"),)
 MaximizerSettings = _settings_of("MaximizerSettings", CrossEntropyMaximizer,
-                                 exclude=("low", "high"), leading=(("kind", str, "auto"),))
-# conservative_weight None: the weight for the value head (learner.value_head).
-LearnerSettings = _settings_of("LearnerSettings", LearnerConfig, undecided={
+                                 exclude=("low", "high"), leading=MAXIMIZER_CHOICE)
+# None for the CQL weight, learning rate and refresh interval: the value head's settings
+# (learner.value_head.SETTINGS_OF_OUTPUT).
+LEARNER_UNDECIDED = {
     "loss": (str, AUTO), "reward_scale": (float | None, None),
-    "reward_shift": (float | None, None), "conservative_weight": (float | None, None)})
+    "reward_shift": (float | None, None), "conservative_weight": (float | None, None),
+    "learning_rate": (float | None, None), "refresh_every": (int | None, None)}
+LearnerSettings = _settings_of("LearnerSettings", LearnerConfig, undecided=LEARNER_UNDECIDED)
 
 
 def build_learner_config(settings: Any) -> LearnerConfig:

@@ -47,12 +47,7 @@ from qadapt.learner.trainer import (
     mean_return,
     success_rate,
 )
-from qadapt.learner.value_head import (
-    AUTO,
-    PENALTY_OF_OUTPUT,
-    RewardRange,
-    choose_value_head,
-)
+from qadapt.learner.value_head import settle_learner
 from qadapt.maximize import maximizer_for_space, resolve_kind
 from qadapt.spaces import check_spaces
 
@@ -101,37 +96,17 @@ def value_record(learner: LearnerConfig, output: str) -> dict[str, Any]:
 
 def settle_value_head(learner: LearnerSettings, output: str, datasets,
                       base: dict[str, Any] | None = None, say=print) -> tuple[Any, str]:
-    """(learner node, network output) with nothing left undecided.
-
-    The reward scale and shift: as set, else the base checkpoint's (``base``, its
-    ``value_record``), else 1 and 0. The output and loss: learner.value_head's choice from the
-    rewards of ``datasets`` after that scale; a base's output is fixed and its loss is kept
-    unless the loss is set. A combination that cannot work is BadInput (one line).
-    """
-    base = base or {}
-    scale = learner.reward_scale if learner.reward_scale is not None else base.get(
-        "reward_scale", 1.0)
-    shift = learner.reward_shift if learner.reward_shift is not None else base.get(
-        "reward_shift", 0.0)
-    loss = learner.loss
-    if loss == AUTO and "loss" in base:
-        loss = base["loss"]
-    rewards = RewardRange.of_datasets(datasets, scale, shift)
+    """(learner node, network output) with nothing left undecided (learner.value_head's
+    ``settle_learner``; ``base`` is a base checkpoint's ``value_record``); ``say`` gets the
+    line naming the choice. A combination that cannot work is BadInput (one line)."""
     try:
-        head = choose_value_head(output, loss, rewards)
+        settled, output, line = settle_learner(learner, output, datasets, base)
     except ValueError as err:
         where = "learner." if str(err).startswith("loss") else "network."
         whose = f" (the base checkpoint has a {output} output)" if base else ""
         raise BadInput(f"{where}{err}{whose}") from err
-    weight = learner.conservative_weight
-    if weight is None:
-        weight = PENALTY_OF_OUTPUT[head.output]
-    say(head.describe() + ("" if (scale, shift) == (1.0, 0.0) else
-                           f"; rewards scaled as {scale:g} * r + {shift:g}")
-        + f"; CQL weight {weight:g}")
-    settled = dataclasses.replace(learner, loss=head.loss, reward_scale=float(scale),
-                                  reward_shift=float(shift), conservative_weight=float(weight))
-    return settled, head.output
+    say(line)
+    return settled, output
 
 
 def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=None):

@@ -149,12 +149,12 @@ class LearnerConfig:
         return asdict(self)
 
     def original_value(self, q: float) -> float:
-        """A Q-value of the scaled rewards in the data's own units: rewards were
-        ``scale * r + shift``, so a discounted sum of them is ``scale * Q + shift / (1 - gamma)``
-        for an endless episode (episodes that end earlier carry less of the shift).
+        """A Q-value learnt on the scaled rewards, in the data's own units: the learner sees
+        ``scale * r + shift``, so its Q is ``scale * Q_data + shift / (1 - gamma)`` for an
+        endless episode (episodes that end earlier carry less of the shift).
 
         Example:
-            >>> LearnerConfig(reward_scale=0.5, reward_shift=1.0).original_value(12.0)
+            >>> round(LearnerConfig(reward_scale=0.5, reward_shift=1.0).original_value(12.0), 9)
             4.0
         """
         return (q - self.reward_shift / (1.0 - self.gamma)) / self.reward_scale

@@ -4,7 +4,8 @@ Holds:
     RewardRange -- the lowest and highest reward and episode return of some datasets.
     ValueHead -- a network output ("sigmoid" or "linear") with its loss, and why it was chosen.
     choose_value_head -- "auto" settings made concrete from a RewardRange; conflicts refused.
-    PENALTY_OF_OUTPUT -- the CQL weight a run gets when none is set, by network output.
+    SETTINGS_OF_OUTPUT -- the learner settings a run gets when none are set, by output.
+    settle_learner -- a learner node's undecided fields made concrete, with one line saying so.
 
 A sigmoid output with a cross-entropy loss suits 0/1 success rewards: Q is a probability of
 success and cannot leave [0, 1]. It is only right when every discounted return does lie in
@@ -16,19 +17,24 @@ else (dense, negative or large rewards) gets a linear output and a Huber loss wi
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 AUTO = "auto"
 # The loss each output is trained with when only one of them is given.
 LOSS_OF_OUTPUT = {"sigmoid": "cross_entropy", "linear": "huber"}
-# The CQL weight when none is set. Sigmoid: 1 on the logits, measured on the pick cell (without
-# it greedy success swung between refreshes; docs/learner.md). Linear: 0, measured on
-# CartPole-v1 from 150 random episodes (3,000 steps, greedy mean return over 50 episodes:
-# weight 1 -> 22, the random policy's 21; 0.1 -> 183; 0 -> 500, the maximum; docs/learner.md,
-# "Other environments"): on a linear Q the penalty flattens the action's effect.
-PENALTY_OF_OUTPUT = {"sigmoid": 1.0, "linear": 0.0}
+# Learner settings a run gets when they are not set, by network output.
+# Sigmoid: the pick cell's measured defaults (docs/learner.md, "How the defaults were chosen"):
+#   CQL weight 1 on the logits, Adam step 3e-4, targets refreshed every 500 steps.
+# Linear: measured on gymnasium's CartPole-v1 and Pendulum-v1 from random episodes
+#   (docs/learner.md, "Other environments"): CQL weight 0 (at 1 the CartPole policy was no
+#   better than random), Adam step 1e-3 and refreshes every 100 steps (Pendulum at 3e-4 or
+#   every 500 steps had not left the random policy's returns after 3,000 steps).
+SETTINGS_OF_OUTPUT = {
+    "sigmoid": {"conservative_weight": 1.0, "learning_rate": 3e-4, "refresh_every": 500},
+    "linear": {"conservative_weight": 0.0, "learning_rate": 1e-3, "refresh_every": 100},
+}
 
 
 @dataclass(frozen=True)
@@ -124,3 +130,44 @@ def choose_value_head(output: str, loss: str, rewards: RewardRange) -> ValueHead
                          "any reward scale and shift) leave [0, 1], where a sigmoid's Q lies; "
                          "use output linear, or rescale the rewards")
     return ValueHead(output, loss, why)
+
+
+def _largest_reward(datasets: Sequence) -> float:
+    return max((float(np.abs(np.asarray(d.array("rewards"), dtype=np.float64)).max())
+                for d in datasets if len(d.array("rewards"))), default=0.0)
+
+
+def settle_learner(learner, output: str, datasets: Sequence, base: dict | None = None):
+    """(learner node, output, line): ``learner`` (a node with LearnerConfig's fields, some
+    None or "auto") with nothing left undecided, and the one line that says what was chosen.
+
+    - Reward scale and shift: as set, else the base checkpoint's (``base``: its recorded
+      value units), else 0 for the shift and, for the scale, 1 with a sigmoid output and
+      1 / max |r| of the data with a linear one (rewards of magnitude at most 1: the Huber
+      loss's quadratic zone, common practice). Pendulum-v1 unscaled (|r| up to 16.3) did not
+      learn in 3,000 steps; scaled, it did (docs/learner.md, "Other environments").
+    - Output and loss: choose_value_head on the rewards (scaled as set or inherited); a
+      base's output is fixed and its loss kept unless the loss is set.
+    - CQL weight, learning rate, refresh interval: as set, else SETTINGS_OF_OUTPUT.
+    ValueError (naming the field) for a combination that cannot work.
+    """
+    base = base or {}
+    scale = learner.reward_scale if learner.reward_scale is not None else base.get(
+        "reward_scale")
+    shift = learner.reward_shift if learner.reward_shift is not None else base.get(
+        "reward_shift", 0.0)
+    loss = base.get("loss", AUTO) if learner.loss == AUTO else learner.loss
+    head = choose_value_head(output, loss, RewardRange.of_datasets(
+        datasets, 1.0 if scale is None else scale, shift))
+    if scale is None:
+        largest = _largest_reward(datasets)
+        scale = 1.0 if head.output == "sigmoid" or largest == 0.0 else 1.0 / largest
+    chosen = {name: getattr(learner, name) if getattr(learner, name) is not None else value
+              for name, value in SETTINGS_OF_OUTPUT[head.output].items()}
+    settled = replace(learner, loss=head.loss, reward_scale=float(scale),
+                      reward_shift=float(shift), **chosen)
+    units = "" if (scale, shift) == (1.0, 0.0) else f"; rewards as {scale:.4g} * r + {shift:g}"
+    line = (f"{head.describe()}{units}; CQL weight {settled.conservative_weight:g}, learning "
+            f"rate {settled.learning_rate:g}, targets refreshed every {settled.refresh_every} "
+            "steps")
+    return settled, head.output, line

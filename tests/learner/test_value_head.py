@@ -9,12 +9,18 @@ documentation states them: CartPole-v1 gives +1 per step; Pendulum-v1 gives rewa
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
 import pytest
 
-from qadapt.learner.value_head import RewardRange, choose_value_head
+from qadapt.learner.value_head import (
+    SETTINGS_OF_OUTPUT,
+    RewardRange,
+    choose_value_head,
+    settle_learner,
+)
 
 PICK = RewardRange(0.0, 1.0, 0.0, 1.0)  # one 0/1 success reward per episode
 CARTPOLE = RewardRange(1.0, 1.0, 8.0, 61.0)
@@ -82,3 +88,46 @@ def test_reward_range_applies_scale_and_shift_per_step():
     assert (scaled.lowest_return, scaled.highest_return) == (-1.5, -1.5)
     # Scaled into [0, 1]: the sigmoid head becomes the automatic choice.
     assert RewardRange.of_datasets([data], scale=1 / 3).in_unit_interval
+
+
+@dataclasses.dataclass
+class _Node:
+    """The learner-node fields the jobs may leave undecided (as LearnerSettings does)."""
+
+    loss: str = "auto"
+    reward_scale: float | None = None
+    reward_shift: float | None = None
+    conservative_weight: float | None = None
+    learning_rate: float | None = None
+    refresh_every: int | None = None
+
+
+def _settle(data, **given):
+    return settle_learner(_Node(**given), "auto", [data])
+
+
+def test_settling_a_dense_negative_reward_task():
+    # Pendulum-like rewards: largest magnitude 16 -> scaled by 1/16; the linear head's settings.
+    data = _Data([-16.0, -4.0, -1.0, -0.5], [2, 2])
+    settled, output, line = _settle(data)
+    assert output == "linear" and settled.loss == "huber"
+    assert settled.reward_scale == 1 / 16 and settled.reward_shift == 0.0
+    assert (settled.conservative_weight, settled.learning_rate, settled.refresh_every) == (
+        SETTINGS_OF_OUTPUT["linear"]["conservative_weight"],
+        SETTINGS_OF_OUTPUT["linear"]["learning_rate"],
+        SETTINGS_OF_OUTPUT["linear"]["refresh_every"])
+    assert line.startswith("value head: linear output, huber loss") and "0.0625 * r" in line
+
+
+def test_settling_keeps_what_is_set_and_what_the_base_records():
+    data = _Data([0.0, 1.0, 0.0, 0.0], [2, 2])  # 0/1 success rewards: the sigmoid head
+    settled, output, _ = _settle(data, learning_rate=0.01)
+    assert (output, settled.loss, settled.reward_scale) == ("sigmoid", "cross_entropy", 1.0)
+    assert settled.learning_rate == 0.01
+    assert settled.conservative_weight == SETTINGS_OF_OUTPUT["sigmoid"]["conservative_weight"]
+    # A linear base with its reward units: fine-tuning inherits loss and scale.
+    settled, output, _ = settle_learner(_Node(), "linear", [data],
+                                        base={"loss": "mse", "reward_scale": 0.5,
+                                              "reward_shift": -1.0})
+    assert (output, settled.loss, settled.reward_scale, settled.reward_shift) == (
+        "linear", "mse", 0.5, -1.0)
