@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pytest
 
 from tests.jobs.conftest import run_ok
@@ -84,3 +85,20 @@ def test_one_output_per_choice_network_on_cartpole(tmp_path):
     meta = _json(tmp_path / "base" / "checkpoints" / "best" / "checkpoint.json")
     assert meta["network"]["q_network"]["form"] == "per_action"
     assert meta["network"]["value"]["loss"] == "huber"
+
+
+@pytest.mark.slow
+def test_cartpole_defaults_learn_from_random_episodes(tmp_path):
+    """Issue target: CartPole-v1 from 150 random episodes, defaults only, at least twice the
+    random policy's mean return. The random policy's return is the collected data's own (its
+    manifest); CartPole-v1 caps an episode at 500 steps, +1 each (gymnasium's registration)."""
+    run_ok("collect", "env=gym", "env.id=CartPole-v1", "policy=random", "episodes=150",
+           "out=data", "progress=false", cwd=tmp_path)
+    random_return = float(np.mean(np.load(tmp_path / "data" / "episode_returns.npy",
+                                          allow_pickle=False)))
+    run_ok("pretrain", "data=data", "steps=3000", "eval.episodes=50", "out=base",
+           "progress=false", cwd=tmp_path)
+    run_ok("evaluate", "ckpt=base", "episodes=100", "out=scores", cwd=tmp_path)
+    learned = _json(tmp_path / "scores" / "evaluation.json")["results"][0]
+    assert 15.0 < random_return < 30.0  # about 22 for uniform random actions (from memory)
+    assert learned["return_low"] >= 2 * random_return, (learned["mean_return"], random_return)
