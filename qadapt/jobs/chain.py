@@ -149,15 +149,24 @@ def _label(name: str, round_number: int, rounds: int) -> str:
     return f"{name}, round {round_number}" if rounds > 1 else name
 
 
+def _cell(evaluation: dict[str, Any]) -> str:
+    """Successes out of episodes, or the mean return where the env reports no success."""
+    if evaluation.get("success_rate", 0.0) is None:
+        return f"return {evaluation['mean_return']:.4g}"
+    return f"{evaluation['successes']}/{evaluation['episodes']}"
+
+
 def _print_table(steps: list[dict[str, Any]], rounds: int) -> None:
     if not steps:
         return
     columns = [e["variation"] for e in steps[0]["evaluations"]]
     width = max(12, *(len(c) for c in columns))
+    if any(e.get("success_rate", 0.0) is None for e in steps[0]["evaluations"]):
+        print("(the env reports no success: each cell is the mean return of its episodes)")
     print("chain step".ljust(28) + "".join(c.rjust(width + 2) for c in columns))
     for step in steps:
         label = f"{step['index']}. {_label(step['variation'], step.get('round', 1), rounds)}"
-        cells = [f"{e['successes']}/{e['episodes']}" for e in step["evaluations"]]
+        cells = [_cell(e) for e in step["evaluations"]]
         print(label.ljust(28) + "".join(c.rjust(width + 2) for c in cells))
 
 

@@ -159,6 +159,8 @@ def settle_learner(learner, output: str, datasets: Sequence, base: dict | None =
     loss = base.get("loss", AUTO) if learner.loss == AUTO else learner.loss
     head = choose_value_head(output, loss, RewardRange.of_datasets(
         datasets, 1.0 if scale is None else scale, shift))
+    if learner.loss == AUTO and "loss" in base:
+        head = ValueHead(head.output, head.loss, "the base checkpoint's")
     if scale is None:
         largest = _largest_reward(datasets)
         scale = 1.0 if head.output == "sigmoid" or largest == 0.0 else 1.0 / largest

@@ -68,6 +68,13 @@ def test_every_job_family_runs_on_a_reference_env(env_id, tmp_path):
                "eval.every=0", "learner.refresh_every=5", "learner.batch_size=32",
                "maximizer.samples=8", f"out=tuned_{init}", "progress=false", cwd=tmp_path)
 
+    chained = run_ok("chain", "base=base", "prior=prior", *gym_env, "variations=[none]",
+                     "episodes=3", "steps=10", "eval_episodes=3", "eval.every=5",
+                     "eval.episodes=2", "learner.refresh_every=5", "learner.batch_size=32",
+                     "maximizer.samples=8", "explore.num_envs=3", "out=chain", cwd=tmp_path)
+    assert "each cell is the mean return" in chained.stdout
+    assert "return " in chained.stdout.splitlines()[-3]
+
     shown = run_ok("evaluate", "ckpt=[base,tuned]", "episodes=3", "num_envs=3", "out=scores",
                    cwd=tmp_path)
     assert "n/a (no success flag)" in shown.stdout and "0.0%" not in shown.stdout
