@@ -41,8 +41,8 @@ def pretrain_job(cfg: PretrainJob) -> int:
         raise BadInput(f"network.form: got 'per_action' for the action space {act_space}, "
                        "expected a Discrete one (use late_fusion or concat for a Box)")
     learner, output = run.settle_value_head(cfg.learner, cfg.network.output, datasets)
-    cfg = dataclasses.replace(cfg, learner=learner,
-                              network=dataclasses.replace(cfg.network, output=output))
+    cfg = run.with_settled(cfg, learner=learner,
+                           network=dataclasses.replace(cfg.network, output=output))
     network_config = build_runtime(QNetworkConfig, cfg.network, "network")
 
     def make_critics(arrays):

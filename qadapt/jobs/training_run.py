@@ -4,6 +4,7 @@ Holds:
     open_sources -- open and verify datasets, checking they share one pair of spaces.
     config_digest -- SHA-256 of the settings that decide a run's result.
     build_maximizer -- the maximiser the settings ask for, for a dataset's action space.
+    with_settled -- a job config with some nodes replaced, without re-running its checks.
     settle_value_head -- the learner's loss and reward scale and the network's output, "auto"
         and inherited settings made concrete (one line says what was chosen).
     value_record -- what a checkpoint records of them, for fine-tuning to inherit.
@@ -16,6 +17,7 @@ Holds:
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import hashlib
 import json
@@ -107,6 +109,16 @@ def settle_value_head(learner: LearnerSettings, output: str, datasets,
         raise BadInput(f"{where}{err}{whose}") from err
     say(line)
     return settled, output
+
+
+def with_settled(cfg, **nodes):
+    """A copy of the job config ``cfg`` with ``nodes`` replaced. Not dataclasses.replace: the
+    job's __post_init__ has already turned its fields into their checked forms (paths into
+    lists, an omitted prior into []) and must not run again on them."""
+    settled = copy.copy(cfg)
+    for name, node in nodes.items():
+        setattr(settled, name, node)
+    return settled
 
 
 def make_evaluator(settings: EvalSettings, maximizer, dataset, acting_columns=None):

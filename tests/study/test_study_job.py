@@ -27,8 +27,7 @@ TINY = [
 
 def _study(out: Path, *extra: str) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, "-m", "qadapt.cli", "study", *TINY, *extra, f"out={out}",
-         f"hydra.run.dir={out.parent}/hydra_{out.name}"],
+        [sys.executable, "-m", "qadapt.cli", "study", *TINY, *extra, f"out={out}"],
         capture_output=True, text=True, cwd=out.parent, timeout=600)
 
 
@@ -38,6 +37,14 @@ def study(tmp_path_factory) -> tuple[Path, subprocess.CompletedProcess]:
     done = _study(out)
     assert done.returncode == 0, done.stderr[-3000:]
     return out, done
+
+
+def test_the_study_writes_nothing_beside_its_out_folder(study):
+    # configs/study.yaml switches Hydra's dated run folder, .hydra/ and log file off; the
+    # cells' sweep logs go under the study's own sweeps/ folder.
+    out, _ = study
+    assert [p.name for p in out.parent.iterdir()] == [out.name]
+    assert (out / "sweeps").is_dir()
 
 
 def test_every_cell_gives_rows_with_raw_counts(study):
