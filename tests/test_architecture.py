@@ -20,7 +20,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "qadapt"
 # Bottom to top. A module may import modules of lower layers and of its own package.
 LAYERS: list[tuple[str, ...]] = [
     ("qadapt", "errors", "checks"),  # the version; BadInput, TrainingFailed; argument checks
-    ("layout", "files", "stats", "spaces"),  # run-directory names, durable files, intervals
+    ("layout", "files", "locking", "stats", "spaces"),  # run names, durable files, locks, ...
     ("wrappers", "rollout"),  # gymnasium-side helpers
     ("data", "checkpoint"),  # what is stored: datasets, checkpoints
     ("nets", "maximize"),  # Q-networks, action maximisers

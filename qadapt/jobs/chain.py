@@ -41,6 +41,7 @@ from qadapt.jobs.evaluate import evaluate_checkpoint
 from qadapt.jobs.finetune import run_finetune
 from qadapt.jobs.outputs import output_dir
 from qadapt.layout import resolve_checkpoint
+from qadapt.locking import hold_directory
 
 BASE_CELL = "none"
 
@@ -208,6 +209,11 @@ def _run_step(cfg: ChainJob, index: int, name: str, round_number: int, *, explor
 def chain_job(cfg: ChainJob) -> int:
     torch.set_num_threads(cfg.threads)
     out = output_dir(cfg.out, "chain")
+    with hold_directory(out, "chain"):
+        return _run_chain(cfg, out)
+
+
+def _run_chain(cfg: ChainJob, out: Path) -> int:
     base_path = resolve_checkpoint(cfg.base, key="base")
     base = load_checkpoint(base_path)
     prior = run.open_sources(cfg.prior)

@@ -38,6 +38,7 @@ from qadapt.files import write_text_durably
 from qadapt.jobs.outputs import output_dir
 from qadapt.layout import resolve_checkpoint
 from qadapt.learner.loading import checkpoint_policy
+from qadapt.locking import hold_directory
 from qadapt.rollout import run_episodes
 from qadapt.stats import bootstrap_mean_interval, wilson_interval
 
@@ -167,12 +168,17 @@ def evaluate_job(cfg: EvaluateJob) -> int:
     variations = _variations(cfg)
     for path in cfg.ckpt:
         resolve_checkpoint(path, key="ckpt")
+    out = output_dir(cfg.out, "evaluation")
+    with hold_directory(out, "evaluate"):
+        return _write_evaluations(cfg, variations, out)
+
+
+def _write_evaluations(cfg: EvaluateJob, variations: list[VariationConfig], out: Path) -> int:
     results = [
         evaluate_checkpoint(path, cfg.env, variation, cfg.episodes, cfg.seed,
                             threads=cfg.threads, num_envs=cfg.num_envs)
         for path in cfg.ckpt for variation in variations
     ]
-    out = output_dir(cfg.out, "evaluation")
     try:
         out.mkdir(exist_ok=True)
     except OSError as err:

@@ -50,6 +50,7 @@ from qadapt.learner.trainer import (
     success_rate,
 )
 from qadapt.learner.value_head import settle_learner
+from qadapt.locking import hold_directory
 from qadapt.maximize import maximizer_for_space, resolve_kind
 from qadapt.spaces import check_spaces
 
@@ -248,7 +249,21 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
     plan = TrainingPlan(steps=cfg.steps, eval_every=eval_settings.every if evaluator else 0,
                         checkpoint_every=cfg.checkpoint_every, log_every=cfg.log_every,
                         progress_bar=cfg.progress)
-    outcome = Trainer(learner, sampler, plan, request.out, metadata, evaluator).run()
+    with hold_directory(request.out, request.job):
+        outcome = Trainer(learner, sampler, plan, request.out, metadata, evaluator).run()
+        summary = _summary(request, outcome, digest)
+        # Each dataset with its share of every batch: which data the checkpoint came from,
+        # and how much of it.
+        lineage = {"parent_checkpoint": parent,
+                   "datasets": [{"path": str(d.path), "sha256": d.fingerprint, "share": share}
+                                for d, share in zip(datasets, shares, strict=True)]}
+        if initialisation is not None:
+            summary["initialisation"] = lineage["initialisation"] = initialisation
+        write_run_records(Path(request.out), summary, lineage)
+    return summary
+
+
+def _summary(request: TrainingRequest, outcome, digest: str) -> dict[str, Any]:
     result = outcome.best_path or outcome.last_path
     summary = {
         "job": request.job,
@@ -264,12 +279,4 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
         "selected": "best" if outcome.best_path else "last",
         "config_digest": digest,
     }
-    # Each dataset with its share of every batch: which data the checkpoint came from, and
-    # how much of it.
-    lineage = {"parent_checkpoint": parent,
-               "datasets": [{"path": str(d.path), "sha256": d.fingerprint, "share": share}
-                            for d, share in zip(datasets, shares, strict=True)]}
-    if initialisation is not None:
-        summary["initialisation"] = lineage["initialisation"] = initialisation
-    write_run_records(Path(request.out), summary, lineage)
     return summary

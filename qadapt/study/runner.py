@@ -34,6 +34,7 @@ from qadapt.files import write_text_durably
 from qadapt.jobs.collect import collect_job
 from qadapt.jobs.outputs import output_dir
 from qadapt.jobs.pretrain import pretrain_job
+from qadapt.locking import hold_directory
 from qadapt.study.arms import STUDY_ARMS
 from qadapt.study.cells import _quoted, cell_dir
 from qadapt.study.filmstrip import write_filmstrips
@@ -155,6 +156,11 @@ def _short_table(cfg: StudyJob, rows: list[dict]) -> str:
 def study_job(cfg: StudyJob) -> int:
     torch.set_num_threads(1)
     study_dir = output_dir(cfg.out, "study").resolve()
+    with hold_directory(study_dir, "study"):
+        return _run_study(cfg, study_dir)
+
+
+def _run_study(cfg: StudyJob, study_dir: Path) -> int:
     study_dir.mkdir(parents=True, exist_ok=True)
     started = time.perf_counter()
     base, prior = _make_base(cfg, study_dir)
