@@ -4,6 +4,7 @@ Holds:
     resolve_member -- the path of a file a manifest names, refusing anything outside the directory.
     fsync_file / fsync_directory -- flush a file's or a directory's contents to the disk.
     write_text_durably -- replace a small text file atomically and flush it to the disk.
+    strict_json -- JSON text with every non-finite number written as null (never NaN).
     sha256_of_file -- the SHA-256 of a file, read in blocks (no memory map, no whole-file read).
     remove_tree -- delete a directory this package created (refuses symlinks).
 """
@@ -11,14 +12,38 @@ Holds:
 from __future__ import annotations
 
 import hashlib
+import json
+import math
 import os
 import shutil
 import tempfile
 from pathlib import Path
+from typing import Any
 
 from qadapt.errors import BadInput
 
 _READ_BLOCK = 1 << 22  # 4 MiB: large enough for full disk throughput, small enough for RSS
+
+
+def _finite_or_none(value: Any) -> Any:
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite_or_none(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite_or_none(v) for v in value]
+    return value
+
+
+def strict_json(value: Any, **options: Any) -> str:
+    """``json.dumps(value, **options)`` as strict JSON (RFC 8259 has no NaN or Infinity):
+    a non-finite float becomes null, a missing figure said as such.
+
+    Example:
+        >>> strict_json({"rate": float("nan"), "n": [1.0, float("inf")]}, sort_keys=True)
+        '{"n": [1.0, null], "rate": null}'
+    """
+    return json.dumps(_finite_or_none(value), allow_nan=False, **options)
 
 
 def resolve_member(directory: Path, file_name: object, *, where: str) -> Path:

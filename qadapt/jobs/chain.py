@@ -34,7 +34,7 @@ from qadapt.config.schema import PolicyConfig
 from qadapt.data import collect, open_dataset
 from qadapt.envs import env_record, make_vector_env
 from qadapt.errors import BadInput
-from qadapt.files import write_text_durably
+from qadapt.files import strict_json, write_text_durably
 from qadapt.jobs import training_run as run
 from qadapt.jobs.collect import build_policy
 from qadapt.jobs.evaluate import evaluate_checkpoint
@@ -47,7 +47,7 @@ BASE_CELL = "none"
 
 
 def _write_json(path: Path, value: dict[str, Any]) -> None:
-    write_text_durably(path, json.dumps(value, indent=2, sort_keys=True))
+    write_text_durably(path, strict_json(value, indent=2, sort_keys=True))
 
 
 @dataclasses.dataclass

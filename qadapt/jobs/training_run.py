@@ -38,7 +38,7 @@ from qadapt.config.training_schema import (
 from qadapt.data import MixtureSampler, open_dataset
 from qadapt.envs import make_recorded_env, make_vector_env
 from qadapt.errors import BadInput
-from qadapt.files import write_text_durably
+from qadapt.files import strict_json, write_text_durably
 from qadapt.learner import FittedQLearner, LearnerConfig
 from qadapt.learner.assembly import transition_arrays
 from qadapt.learner.source_indicator import TaggedDataset, TaggedSampler
@@ -156,8 +156,8 @@ def outcome_text(summary: dict[str, Any]) -> str:
 
 def write_run_records(run_dir: Path, summary: dict[str, Any], lineage: dict[str, Any]) -> None:
     run_dir.mkdir(parents=True, exist_ok=True)
-    write_text_durably(run_dir / layout.SUMMARY, json.dumps(summary, indent=2, sort_keys=True))
-    write_text_durably(run_dir / layout.LINEAGE, json.dumps(lineage, indent=2, sort_keys=True))
+    write_text_durably(run_dir / layout.SUMMARY, strict_json(summary, indent=2, sort_keys=True))
+    write_text_durably(run_dir / layout.LINEAGE, strict_json(lineage, indent=2, sort_keys=True))
 
 
 def plain(obj: Any) -> Any:

@@ -26,7 +26,7 @@ from qadapt.config.compose import compose_typed, variation_by_name
 from qadapt.config.hydra_entry import run_job
 from qadapt.config.training_schema import FinetuneJob, register_training_schemas
 from qadapt.errors import BadInput, TrainingFailed
-from qadapt.files import write_text_durably
+from qadapt.files import strict_json, write_text_durably
 from qadapt.jobs.chain import BASE_CELL, chain_job
 from qadapt.jobs.evaluate import evaluate_checkpoint
 from qadapt.jobs.finetune import run_finetune
@@ -188,7 +188,7 @@ def run_cell(study_dir: str | Path, cell_id: str) -> list[dict]:
         rows = _finetune_rows(plan, cell, where)
     else:
         rows = _chain_rows(plan, cell, where)
-    write_text_durably(rows_path, json.dumps(rows, indent=1))
+    write_text_durably(rows_path, strict_json(rows, indent=1))
     print(f"cell {cell.id}: done")
     return rows
 

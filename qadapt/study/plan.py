@@ -20,7 +20,7 @@ from typing import Any
 
 from qadapt import layout
 from qadapt.errors import BadInput
-from qadapt.files import write_text_durably
+from qadapt.files import strict_json, write_text_durably
 from qadapt.jobs.training_run import plain
 from qadapt.study.arms import study_arm
 
@@ -114,7 +114,7 @@ class StudyPlan:
                                f"{stored.digest[:12]}, this command {self.digest[:12]}); "
                                "choose another out=")
             return
-        write_text_durably(path, json.dumps(self.to_json(), indent=2, sort_keys=True))
+        write_text_durably(path, strict_json(self.to_json(), indent=2, sort_keys=True))
 
 
 def _finetune_cell(cells: dict, data: dict, study_dir: Path, arm_name: str,

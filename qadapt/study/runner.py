@@ -30,7 +30,7 @@ from qadapt.config.schema import CollectJob
 from qadapt.config.training_schema import PretrainJob, register_training_schemas
 from qadapt.data import open_dataset
 from qadapt.errors import TrainingFailed
-from qadapt.files import write_text_durably
+from qadapt.files import strict_json, write_text_durably
 from qadapt.jobs.collect import collect_job
 from qadapt.jobs.outputs import output_dir
 from qadapt.jobs.pretrain import pretrain_job
@@ -116,7 +116,7 @@ def _gather(study_dir: Path, plan: StudyPlan) -> tuple[list[dict], list[str]]:
 
 def _write_results(study_dir: Path, rows: list[dict]) -> Path:
     path = study_dir / layout.RESULTS
-    write_text_durably(path, "".join(json.dumps(row, sort_keys=True) + "\n" for row in rows))
+    write_text_durably(path, "".join(strict_json(row, sort_keys=True) + "\n" for row in rows))
     return path
 
 

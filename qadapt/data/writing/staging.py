@@ -27,6 +27,7 @@ from qadapt.files import (
     fsync_directory,
     remove_tree,
     sha256_of_file,
+    strict_json,
     write_text_durably,
 )
 
@@ -197,7 +198,7 @@ class StagingArea:
             "success_reported": bool(np.any(arrays["success_reported"])),
             "files": files,
         }
-        write_text_durably(scratch / _CHUNK_FILE, json.dumps(info, indent=2))
+        write_text_durably(scratch / _CHUNK_FILE, strict_json(info, indent=2))
         fsync_directory(scratch)
         os.rename(scratch, final)
         fsync_directory(self.path)
