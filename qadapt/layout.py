@@ -58,7 +58,9 @@ def best_checkpoint(run_dir: str | Path) -> Path:
 
 def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
     """``path`` itself if it is a checkpoint; for a run directory, the checkpoint its
-    summary.json selected (the best evaluated one when evaluation was on).
+    summary.json selected (the best evaluated one when evaluation was on), found inside the
+    run directory itself (``checkpoints/best`` or ``checkpoints/last``, as ``selected`` says):
+    a copied or moved run resolves to its own checkpoint, never to the original's.
 
     Example:
         >>> import tempfile
@@ -67,6 +69,11 @@ def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
         Traceback (most recent call last):
         ...
         qadapt.errors.BadInput: ckpt: ... is neither a checkpoint nor a run directory
+        >>> _ = (run / SUMMARY).write_text('{"selected": "best", "checkpoint": 5}')
+        >>> resolve_checkpoint(run, key="ckpt")
+        Traceback (most recent call last):
+        ...
+        qadapt.errors.BadInput: ckpt: .../summary.json: "checkpoint" is 5 (int), expected a path (string)
     """
     given = Path(path)
     if (given / CHECKPOINT_RECORD).exists():
@@ -74,7 +81,20 @@ def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
     summary = given / SUMMARY
     if summary.exists():
         try:
-            return Path(json.loads(summary.read_text())["checkpoint"])
-        except (ValueError, KeyError) as err:
-            raise BadInput(f"{key}: {summary} does not name a checkpoint") from err
+            record = json.loads(summary.read_text())
+        except (OSError, ValueError) as err:
+            raise BadInput(f"{key}: {summary} is not readable JSON ({err})") from err
+        if not isinstance(record, dict):
+            raise BadInput(f"{key}: {summary} holds a {type(record).__name__}, expected an "
+                           "object with the run's selected checkpoint")
+        named = record.get("checkpoint")
+        if not isinstance(named, str):
+            raise BadInput(f'{key}: {summary}: "checkpoint" is {named!r} '
+                           f"({type(named).__name__}), expected a path (string)")
+        selected = record.get("selected")
+        if selected in ("best", "last"):
+            inside = given / CHECKPOINTS / selected
+            if (inside / CHECKPOINT_RECORD).exists():
+                return inside
+        return Path(named)
     raise BadInput(f"{key}: {given} is neither a checkpoint nor a run directory")

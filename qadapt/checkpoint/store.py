@@ -345,5 +345,11 @@ def load_checkpoint(
     weights = _read_tensors(paths[WEIGHTS_FILE])
     state = _read_training_state(paths[TRAINING_STATE_FILE]) if load_training_state else None
     ordered = {name: weights[name] for name in sorted(weights)}
+    for name, tensor in ordered.items():
+        # A matching fingerprint proves the bytes are the saved ones, not that they are
+        # usable: a NaN or infinity would only surface later, inside the maximiser.
+        if tensor.is_floating_point() and not bool(torch.isfinite(tensor).all()):
+            raise BadInput(f"{root}: weight tensor {name} holds NaN or infinite values; "
+                           "the checkpoint cannot be used")
     return LoadedCheckpoint(root, identity, ordered, metadata, state, has_state)
 

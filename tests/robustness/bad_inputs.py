@@ -34,6 +34,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from safetensors.numpy import load_file, save_file
 
 REPO = Path(__file__).resolve().parents[2]
 HYDRA_JOBS = {"collect", "import", "split", "pretrain", "finetune", "evaluate", "chain"}
@@ -666,6 +667,37 @@ def _run_summary_not_json(ws, scratch):
     run, selected = run_copy(ws, scratch)
     (run / "summary.json").write_text("{ half a summary")
     return _finetune(ws, scratch, run), ["base", str(run / "summary.json")]
+
+
+@case("checkpoint", "finetune")
+def _run_summary_checkpoint_not_a_path(ws, scratch):
+    """run directory whose summary.json names its checkpoint with a number"""
+    run, _ = run_copy(ws, scratch)
+    (run / "summary.json").write_text(json.dumps({"selected": "best", "checkpoint": 5}))
+    return _finetune(ws, scratch, run), ["base", "summary.json", '"checkpoint" is 5']
+
+
+@case("checkpoint", "evaluate")
+def _run_summary_a_list(ws, scratch):
+    """run directory whose summary.json holds a list"""
+    run, _ = run_copy(ws, scratch)
+    (run / "summary.json").write_text("[1, 2]")
+    return (["evaluate", f"ckpt={run}", "episodes=2", f"out={scratch / 'out'}"],
+            ["ckpt", "summary.json", "list"])
+
+
+@case("checkpoint", "evaluate")
+def _checkpoint_weights_nan(ws, scratch):
+    """checkpoint whose weights hold NaN (fingerprints forged to match)"""
+    ckpt = copy_tree(ws.best, scratch / "ckpt")
+    tensors = load_file(str(ckpt / "weights.safetensors"))
+    name = sorted(tensors)[0]
+    tensors[name] = tensors[name].copy()
+    tensors[name].flat[0] = np.nan
+    save_file(tensors, str(ckpt / "weights.safetensors"))
+    relist_checkpoint_file(ckpt, "weights.safetensors")
+    return (["evaluate", f"ckpt={ckpt}", "episodes=2", f"out={scratch / 'out'}"],
+            [name, "NaN"])
 
 
 @case("checkpoint", "finetune")
