@@ -73,7 +73,7 @@ def resolve_checkpoint(path: str | Path, key: str = "checkpoint") -> Path:
         >>> resolve_checkpoint(run, key="ckpt")
         Traceback (most recent call last):
         ...
-        qadapt.errors.BadInput: ckpt: .../summary.json: "checkpoint" is 5 (int), expected a path (string)
+        qadapt.errors.BadInput: ckpt: ...: "checkpoint" is 5 (int), expected a path (string)
     """
     given = Path(path)
     if (given / CHECKPOINT_RECORD).exists():
