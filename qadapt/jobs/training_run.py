@@ -39,6 +39,7 @@ from qadapt.data import MixtureSampler, open_dataset
 from qadapt.envs import make_recorded_env, make_vector_env
 from qadapt.errors import BadInput
 from qadapt.files import strict_json, write_text_durably
+from qadapt.jobs.outputs import check_training_folder
 from qadapt.learner import FittedQLearner, LearnerConfig
 from qadapt.learner.assembly import transition_arrays
 from qadapt.learner.source_indicator import TaggedDataset, TaggedSampler
@@ -203,6 +204,7 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
     """Train as ``request`` says; write checkpoints, summary.json and lineage.json in its
     ``out``. Returns the summary."""
     cfg = request.run
+    check_training_folder(Path(request.out))
     datasets, indicator, parent = request.datasets, request.indicator, request.parent
     network_config, seed = request.network_config, cfg.seed
     maximizer_settings, eval_settings = cfg.maximizer, cfg.eval

@@ -964,6 +964,16 @@ def _collect_perturbation_on_other_env(ws, scratch):
             ["Pendulum-v1", "perturbations", "variation.wrappers"])
 
 
+@case("output", "pretrain")
+def _pretrain_into_a_users_folder(ws, scratch):
+    """pretrain: out= is a folder holding a file that is not a run's"""
+    folder = scratch / "mine"
+    folder.mkdir()
+    (folder / "notes.txt").write_text("my notes\n")
+    return (["pretrain", f"data={ws.dataset}", "steps=5", "eval.every=0", f"out={folder}",
+             *SMALL_TRAINING], [str(folder), "notes.txt", "not a qadapt run"])
+
+
 # Action spaces and value heads (gymnasium's CartPole-v1 has a Discrete(2) action space,
 # Pendulum-v1 a Box and rewards in [-16.3, 0], per their documentation) ---------------------
 @case("config", "pretrain")
