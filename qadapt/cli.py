@@ -48,6 +48,10 @@ JOBS: dict[str, tuple[str, str]] = {
         "run greedy episodes of checkpoints under variations; success and return with intervals",
         "qadapt.jobs.evaluate:main",
     ),
+    "score": (
+        "rank checkpoints from held-out logged data alone (fitted Q evaluation, TD error, own Q)",
+        "qadapt.jobs.score:main",
+    ),
     "study": (
         "run a grid of fine-tuning runs (strategies, variations, seeds, budgets, chains); report",
         "qadapt.study.runner:main",

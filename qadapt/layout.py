@@ -27,6 +27,7 @@ LOGS = "logs"
 LAST = "last"
 BEST = "best"
 EVALUATION = "evaluation.json"
+SCORE = "score.json"
 CHECKPOINT_RECORD = "checkpoint.json"
 
 CHAIN_RECORD = "chain.json"

@@ -20,6 +20,7 @@ from omegaconf import OmegaConf
 from qadapt.config.training_schema import (
     LEARNER_UNDECIDED,
     MAXIMIZER_CHOICE,
+    MAXIMIZER_UNDECIDED,
     NETWORK_UNDECIDED,
     LearnerSettings,
     MaximizerSettings,
@@ -46,7 +47,8 @@ def _runtime_settings(runtime) -> dict[str, object]:
 # Fields whose node default is left for the job to settle from the data ("auto") or the base
 # checkpoint (None), and the field that chooses among maximisers.
 UNDECIDED = {"network": {k: d for k, (_, d) in NETWORK_UNDECIDED.items()},
-             "maximizer": {}, "learner": {k: d for k, (_, d) in LEARNER_UNDECIDED.items()}}
+             "maximizer": {k: d for k, (_, d) in MAXIMIZER_UNDECIDED.items()},
+             "learner": {k: d for k, (_, d) in LEARNER_UNDECIDED.items()}}
 CHOOSING = {"network": {}, "maximizer": {n: d for n, _, d in MAXIMIZER_CHOICE}, "learner": {}}
 GROUPS = [("network", NetworkSettings, QNetworkConfig),
           ("maximizer", MaximizerSettings, CrossEntropyMaximizer),

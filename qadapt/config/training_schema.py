@@ -75,7 +75,8 @@ def build_runtime(runtime: type, node: Any, key: str, **extra: Any) -> Any:
     failed check reported as BadInput under ``key``. The one place a node becomes the object.
 
     Example:
-        >>> build_runtime(QNetworkConfig, NetworkSettings(head=[32]), "network").head
+        >>> node = NetworkSettings(head=[32], output="linear")
+        >>> build_runtime(QNetworkConfig, node, "network").head
         (32,)
     """
     hints = typing.get_type_hints(runtime if dataclasses.is_dataclass(runtime)
@@ -95,9 +96,16 @@ NETWORK_UNDECIDED = {"output": (str, AUTO)}
 NetworkSettings = _settings_of("NetworkSettings", QNetworkConfig, undecided=NETWORK_UNDECIDED)
 # ``kind``: "auto" (exhaustive for a Discrete action space, CEM for a Box), "cem" or
 # "exhaustive"; the other fields are the CEM's, unused by the exhaustive search.
+# The CEM's settings are None until the job settles them: the base checkpoint's when
+# fine-tuning, else the CEM's own defaults (jobs.training_run.settle_maximizer).
 MAXIMIZER_CHOICE = (("kind", str, "auto"),)
+MAXIMIZER_UNDECIDED = {
+    name: (int | None, None) if name in ("samples", "elites", "iterations") else
+    (float | None, None)
+    for name in inspect.signature(CrossEntropyMaximizer).parameters if name not in ("low", "high")}
 MaximizerSettings = _settings_of("MaximizerSettings", CrossEntropyMaximizer,
-                                 exclude=("low", "high"), leading=MAXIMIZER_CHOICE)
+                                 exclude=("low", "high"), leading=MAXIMIZER_CHOICE,
+                                 undecided=MAXIMIZER_UNDECIDED)
 # None for the CQL weight, learning rate and refresh interval: the value head's settings
 # (learner.value_head.SETTINGS_OF_OUTPUT).
 LEARNER_UNDECIDED = {

@@ -51,7 +51,9 @@ def run_finetune(cfg: FinetuneJob) -> dict:
     # none: its output then decides the loss).
     learner, _ = run.settle_value_head(cfg.learner, network_config.output, datasets,
                                        base=base.metadata.network.get("value"))
-    cfg = run.with_settled(cfg, learner=learner)
+    # The base's maximiser settings too, unless set.
+    maximizer = run.settle_maximizer(cfg.maximizer, base.metadata.network.get("maximizer"))
+    cfg = run.with_settled(cfg, learner=learner, maximizer=maximizer)
     indicator, base_weights = _indicator_and_weights(cfg, base, str(base_path), len(prior),
                                                      len(new), int(new[0].obs_dim))
     width = 0 if indicator is None else indicator.width

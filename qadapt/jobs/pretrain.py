@@ -41,7 +41,7 @@ def pretrain_job(cfg: PretrainJob) -> int:
         raise BadInput(f"network.form: got 'per_action' for the action space {act_space}, "
                        "expected a Discrete one (use late_fusion or concat for a Box)")
     learner, output = run.settle_value_head(cfg.learner, cfg.network.output, datasets)
-    cfg = run.with_settled(cfg, learner=learner,
+    cfg = run.with_settled(cfg, learner=learner, maximizer=run.settle_maximizer(cfg.maximizer),
                            network=dataclasses.replace(cfg.network, output=output))
     network_config = build_runtime(QNetworkConfig, cfg.network, "network")
 

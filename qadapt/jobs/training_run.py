@@ -3,6 +3,7 @@
 Holds:
     open_sources -- open and verify datasets, checking they share one pair of spaces.
     config_digest -- SHA-256 of the settings that decide a run's result.
+    settle_maximizer -- the maximiser's unset settings from the base checkpoint or the CEM.
     build_maximizer -- the maximiser the settings ask for, for a dataset's action space.
     with_settled -- a job config with some nodes replaced, without re-running its checks.
     settle_value_head -- the learner's loss and reward scale and the network's output, "auto"
@@ -20,6 +21,7 @@ from __future__ import annotations
 import copy
 import dataclasses
 import hashlib
+import inspect
 import json
 from collections.abc import Callable
 from datetime import UTC, datetime
@@ -52,7 +54,7 @@ from qadapt.learner.trainer import (
 )
 from qadapt.learner.value_head import settle_learner
 from qadapt.locking import hold_directory
-from qadapt.maximize import maximizer_for_space, resolve_kind
+from qadapt.maximize import KINDS, CrossEntropyMaximizer, maximizer_for_space, resolve_kind
 from qadapt.spaces import check_spaces
 
 
@@ -75,6 +77,7 @@ def build_maximizer(settings: MaximizerSettings, action_space, say=print):
     """The maximiser the ``maximizer`` node asks for (its kind, "auto" resolved for
     ``action_space``), built by maximize's factory; a bad setting or a kind the space does
     not allow is BadInput. ``say`` gets the one line naming the choice."""
+    settings = settle_maximizer(settings)
     values = dataclasses.asdict(settings)
     kind = values.pop("kind")
     try:
@@ -90,6 +93,28 @@ def build_maximizer(settings: MaximizerSettings, action_space, say=print):
         say(f"maximizer: CEM, {settings.samples} samples x {settings.iterations} iterations"
             f"{why}")
     return maximizer
+
+
+def settle_maximizer(settings: MaximizerSettings,
+                     base: dict[str, Any] | None = None) -> MaximizerSettings:
+    """The ``maximizer`` node with nothing left unset: each CEM setting left at None takes
+    the base checkpoint's (``base``, its ``network["maximizer"]`` record, when fine-tuning),
+    else the CEM's own default; kind "auto" takes the base's kind. Set values are kept.
+
+    Example:
+        >>> settle_maximizer(MaximizerSettings(samples=8), {"kind": "cem", "elites": 4}).elites
+        4
+    """
+    base = base or {}
+    values = dataclasses.asdict(settings)
+    defaults = inspect.signature(CrossEntropyMaximizer).parameters
+    for name, value in values.items():
+        if value is None:
+            inherited = base.get(name)
+            values[name] = inherited if inherited is not None else defaults[name].default
+    if values["kind"] == "auto" and base.get("kind") in KINDS:
+        values["kind"] = base["kind"]
+    return type(settings)(**values)
 
 
 def value_record(learner: LearnerConfig, output: str) -> dict[str, Any]:
@@ -207,7 +232,7 @@ def run_training(request: TrainingRequest) -> dict[str, Any]:
     check_training_folder(Path(request.out))
     datasets, indicator, parent = request.datasets, request.indicator, request.parent
     network_config, seed = request.network_config, cfg.seed
-    maximizer_settings, eval_settings = cfg.maximizer, cfg.eval
+    maximizer_settings, eval_settings = settle_maximizer(cfg.maximizer), cfg.eval
     learner_config = build_learner_config(cfg.learner)
     first = datasets[0]
     obs_space, act_space = first.observation_space.to_space(), first.action_space.to_space()

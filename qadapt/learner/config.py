@@ -2,6 +2,7 @@
 
 Holds:
     LearnerConfig -- every learner hyper-parameter, validated at the door.
+    in_reward_units -- a Q-value learnt on mapped rewards, back in the rewards' own units.
 """
 
 from __future__ import annotations
@@ -12,6 +13,18 @@ from dataclasses import asdict, dataclass
 TARGET_MODES = ("refresh", "per_batch")
 TARGET_UPDATES = ("copy", "polyak")
 LOSSES = ("cross_entropy", "huber", "mse")
+
+
+def in_reward_units(q, gamma: float, scale: float = 1.0, shift: float = 0.0):
+    """A Q-value learnt on rewards ``scale * r + shift``, in the rewards' own units (for an
+    endless episode; episodes that end earlier carry less of the shift).
+
+    Example:
+        >>> round(in_reward_units(12.0, 0.9, scale=0.5, shift=1.0), 9)
+        4.0
+    """
+    offset = 0.0 if shift == 0 else shift / (1.0 - gamma)
+    return (q - offset) / scale
 
 
 def _check(name: str, ok: bool, value: object, expected: str) -> None:
@@ -157,4 +170,4 @@ class LearnerConfig:
             >>> round(LearnerConfig(reward_scale=0.5, reward_shift=1.0).original_value(12.0), 9)
             4.0
         """
-        return (q - self.reward_shift / (1.0 - self.gamma)) / self.reward_scale
+        return in_reward_units(q, self.gamma, self.reward_scale, self.reward_shift)

@@ -2,6 +2,7 @@
 
 Holds:
     load_q_network -- the acting network of a checkpoint, checked against expected spaces.
+    checkpoint_maximizer -- the maximiser a checkpoint records (kind and CEM settings).
     checkpoint_policy -- a QPolicy over a checkpoint's network, for evaluation or collection.
 """
 
@@ -49,18 +50,26 @@ def load_q_network(path: str | Path, observation_space=None, action_space=None,
     return network, loaded
 
 
+def checkpoint_maximizer(metadata, action_space, where: str, settings: dict | None = None):
+    """The maximiser a checkpoint was trained with: its recorded kind and CEM settings ("auto"
+    and the CEM's own defaults for records that lack them), unless ``settings`` are given."""
+    recorded = dict(metadata.network.get("maximizer") or {})
+    kind = recorded.pop("kind", "auto")
+    if settings is None:
+        settings = {k: v for k, v in recorded.items() if v is not None}
+    try:
+        return maximizer_for_space(kind, action_space, settings)
+    except ValueError as err:
+        raise BadInput(f"{where}: {err}") from err
+
+
 def checkpoint_policy(path, env, seed: int, gaussian_std: float = 0.0, epsilon: float = 0.0,
                       maximizer_settings: dict | None = None) -> QPolicy:
     """A QPolicy over the checkpoint at ``path``, refusing one trained for other spaces."""
     path = resolve_checkpoint(path, key="policy.checkpoint")
     network, loaded = load_q_network(path, env.single_observation_space,
                                      env.single_action_space)
-    # The kind the checkpoint was trained with ("auto" for older ones): exhaustive for a
-    # Discrete space; CEM with its own defaults unless settings are given.
-    kind = loaded.metadata.network.get("maximizer", {}).get("kind", "auto")
-    try:
-        maximizer = maximizer_for_space(kind, env.single_action_space, maximizer_settings)
-    except ValueError as err:
-        raise BadInput(f"{path}: {err}") from err
+    maximizer = checkpoint_maximizer(loaded.metadata, env.single_action_space, str(path),
+                                     maximizer_settings)
     return QPolicy(network, maximizer, seed=seed, gaussian_std=gaussian_std, epsilon=epsilon,
                    provenance={"checkpoint": str(path), "checkpoint_sha256": loaded.identity})

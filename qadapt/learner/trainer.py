@@ -9,9 +9,9 @@ Holds:
 The run directory holds ``checkpoints/last`` (weights plus the full training state: learner,
 sampler, evaluation history; rewritten atomically every ``checkpoint_every`` steps and at the
 end) and ``checkpoints/best`` (the weights, critics and acting network, that scored best in
-evaluation), plus
-tensorboard logs under ``logs/``. Because evaluation draws from its own seeded streams, a run
-that is killed and resumed from ``last`` ends with the same bytes as one that never stopped.
+evaluation), plus tensorboard logs under ``logs/`` (Q figures in the data's own reward
+units). Because evaluation draws from its own seeded streams, a run that is killed and
+resumed from ``last`` ends with the same bytes as one that never stopped.
 """
 
 from __future__ import annotations
@@ -38,6 +38,9 @@ from qadapt.learner.policy import QPolicy
 from qadapt.learner.source_indicator import ActingTag
 from qadapt.maximize import ActionMaximizer
 from qadapt.rollout import EpisodeResults, run_episodes
+
+# Logged learner figures that are Q-values; they are logged in the data's reward units.
+IN_REWARD_UNITS = ("q_mean", "q_max", "target_mean")
 
 
 @dataclass(frozen=True)
@@ -250,6 +253,10 @@ class Trainer:
                 if step % plan.log_every == 0:
                     now = time.perf_counter()
                     values = {k: float(v) for k, v in metrics.items()}
+                    # Q figures in the data's own reward units (the learner may train on
+                    # scaled rewards; identity for the default scale 1, shift 0).
+                    for name in IN_REWARD_UNITS:
+                        values[name] = self.learner.config.original_value(values[name])
                     for name, value in values.items():
                         log.add_scalar(f"train/{name}", value, step)
                     log.add_scalar("train/steps_per_second",

@@ -59,10 +59,11 @@ def test_every_job_family_runs_on_a_reference_env(env_id, tmp_path):
            "progress=false", cwd=tmp_path)
     tuned = run_ok("finetune", "base=base", "prior=prior", "new=new", "steps=20",
                    "eval.every=10", "eval.episodes=3", "learner.refresh_every=10",
-                   "learner.batch_size=32", "maximizer.samples=8", "out=tuned",
-                   "progress=false", cwd=tmp_path)
-    # The base's linear head and Huber loss carry over without being named.
+                   "learner.batch_size=32", "out=tuned", "progress=false", cwd=tmp_path)
+    # The base's linear head and Huber loss carry over without being named, and so do its
+    # maximiser settings (8 CEM samples, not the CEM's default 64).
     assert "value head: linear output, huber loss" in tuned.stdout
+    assert f"maximizer: {maximizer_line}" in tuned.stdout
     for init in ("scratch", "torso"):
         run_ok("finetune", "base=base", "prior=prior", "new=new", "steps=10", f"init={init}",
                "eval.every=0", "learner.refresh_every=5", "learner.batch_size=32",

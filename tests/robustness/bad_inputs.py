@@ -37,7 +37,8 @@ import numpy as np
 from safetensors.numpy import load_file, save_file
 
 REPO = Path(__file__).resolve().parents[2]
-HYDRA_JOBS = {"collect", "import", "split", "pretrain", "finetune", "evaluate", "chain"}
+HYDRA_JOBS = {"collect", "import", "split", "pretrain", "finetune", "evaluate", "chain",
+              "score"}
 MARKER_NAME = "unpickled.marker"
 
 # A small network and short schedule: every checkpoint here is a few hundred KiB and a
@@ -713,6 +714,41 @@ def _symlink_in_checkpoint(ws, scratch):
     (ckpt / "weights.safetensors").unlink()
     os.symlink(ws.checkpoint / "weights.safetensors", ckpt / "weights.safetensors")
     return _finetune(ws, scratch, ckpt), [str(ckpt / "weights.safetensors"), "symlink"]
+
+
+# Offline scoring -----------------------------------------------------------------------------
+def _score(ws: Workspace, scratch: Path, data: Path, *extra: str) -> list[str]:
+    return ["score", f"ckpt={ws.run}", f"data={data}", "fit.fits=2", "fit.steps_per_fit=2",
+            f"out={scratch / 'out'}", *extra]
+
+
+@case("dataset", "score")
+def _held_out_other_spaces(ws, scratch):
+    """score on a held-out dataset from another env's spaces"""
+    return _score(ws, scratch, ws.other_dataset), ["held-out dataset", "(3,)", "(61,)"]
+
+
+@case("dataset", "score", subprocess=True)
+def _held_out_is_training_data(ws, scratch):
+    """score on held-out data whose episodes trained the checkpoint"""
+    return _score(ws, scratch, ws.dataset), ["data", "also trained", "allow_overlap"]
+
+
+@case("config", "score")
+def _score_no_fits(ws, scratch):
+    """score with zero fitted Q evaluation refreshes"""
+    return _score(ws, scratch, ws.dataset, "fit.fits=0"), ["fit.fits", "positive integer"]
+
+
+@case("output", "score")
+def _score_into_users_folder(ws, scratch):
+    """score into a folder holding the user's own files"""
+    mine = scratch / "mine"
+    mine.mkdir()
+    (mine / "notes.txt").write_text("mine\n")
+    argv = [a for a in _score(ws, scratch, ws.dataset, "allow_overlap=true")
+            if not a.startswith("out=")] + [f"out={mine}"]
+    return argv, ["out", str(mine), "not a score"]
 
 
 # Configs -------------------------------------------------------------------------------------

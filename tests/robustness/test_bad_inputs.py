@@ -47,4 +47,4 @@ def test_every_row_runs_a_job_the_cli_has():
 def test_every_job_that_reads_settings_has_rows():
     jobs = {c.job for c in ROWS}
     assert {"collect", "import", "split", "inspect", "pretrain", "finetune", "chain",
-            "evaluate", "study"} <= jobs, sorted(jobs)
+            "evaluate", "study", "score"} <= jobs, sorted(jobs)
